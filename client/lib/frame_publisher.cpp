@@ -1,0 +1,61 @@
+#include "client/lib/frame_publisher.h"
+
+namespace slopecast::client {
+
+FramePublisher::FramePublisher(zmq::context_t& ctx, const std::string& endpoint, int high_water_mark)
+    : socket_(ctx, zmq::socket_type::xpub) {
+  socket_.set(zmq::sockopt::linger, 1000);
+  socket_.set(zmq::sockopt::sndhwm, high_water_mark);
+  socket_.bind(endpoint);
+}
+
+bool FramePublisher::wait_for_subscriber(std::chrono::milliseconds timeout) {
+  if (have_subscriber_) return true;
+  zmq::pollitem_t item{socket_.handle(), 0, ZMQ_POLLIN, 0};
+  const auto deadline = std::chrono::steady_clock::now() + timeout;
+  while (!have_subscriber_) {
+    const auto left = std::chrono::duration_cast<std::chrono::milliseconds>(
+        deadline - std::chrono::steady_clock::now());
+    if (left.count() <= 0) return false;
+    zmq::poll(&item, 1, left);
+    zmq::message_t m;
+    while (socket_.recv(m, zmq::recv_flags::dontwait))
+      if (m.size() >= 1 && static_cast<const unsigned char*>(m.data())[0] == 1) have_subscriber_ = true;
+  }
+  return true;
+}
+
+bool FramePublisher::publish(const v1::FrameHeader& header, std::span<const std::byte> pixels) {
+  header.SerializeToString(&header_buffer_);
+  if (!socket_.send(zmq::buffer(header_buffer_), zmq::send_flags::sndmore | zmq::send_flags::dontwait))
+    return false;
+  return socket_.send(zmq::const_buffer(pixels.data(), pixels.size()), zmq::send_flags::dontwait)
+      .has_value();
+}
+
+bool FramePublisher::publish_parts(std::span<const std::string> parts) {
+  for (std::size_t i = 0; i < parts.size(); ++i) {
+    auto flags = zmq::send_flags::dontwait;
+    if (i + 1 < parts.size()) flags = flags | zmq::send_flags::sndmore;
+    if (!socket_.send(zmq::buffer(parts[i]), flags)) return false;
+  }
+  return true;
+}
+
+std::string FramePublisher::endpoint() const {
+  return socket_.get(zmq::sockopt::last_endpoint);
+}
+
+v1::FrameHeader make_frame_header(std::uint64_t seq, std::uint64_t camera_time_ns, int width,
+                                  int height, v1::PixelType type) {
+  v1::FrameHeader h;
+  h.set_contract_version(1);
+  h.set_seq(seq);
+  h.set_camera_time_ns(camera_time_ns);
+  h.set_width_px(static_cast<std::uint32_t>(width));
+  h.set_height_px(static_cast<std::uint32_t>(height));
+  h.set_pixel_type(type);
+  return h;
+}
+
+}  // namespace slopecast::client

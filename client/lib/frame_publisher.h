@@ -1,0 +1,50 @@
+// Publishing camera frames in the slopecast wire format (for camera adapters,
+// the simulator and tests).
+//
+// The publisher binds an XPUB socket, so it can tell when a subscriber (the
+// daemon) has connected: wait_for_subscriber() is the readiness handshake
+// that lets a sender start without losing its first frames to ZeroMQ's
+// "slow joiner" effect, instead of sleeping and hoping.
+#pragma once
+
+#include <chrono>
+#include <cstddef>
+#include <span>
+#include <string>
+
+#include <zmq.hpp>
+
+#include "slopecast/v1/frame.pb.h"
+
+namespace slopecast::client {
+
+class FramePublisher {
+ public:
+  // Binds endpoint. high_water_mark: frames queued per subscriber before
+  // the oldest are dropped. Throws zmq::error_t if the bind fails.
+  FramePublisher(zmq::context_t& ctx, const std::string& endpoint, int high_water_mark = 16);
+
+  // True once at least one subscription has arrived, false on timeout.
+  [[nodiscard]] bool wait_for_subscriber(std::chrono::milliseconds timeout);
+
+  // Sends header + pixels as one two-part message. Never blocks: returns
+  // false if ZeroMQ dropped it (no subscriber or queue full).
+  bool publish(const v1::FrameHeader& header, std::span<const std::byte> pixels);
+
+  // Sends arbitrary parts as one message (tests use it for malformed frames).
+  bool publish_parts(std::span<const std::string> parts);
+
+  // The endpoint actually bound (resolves tcp://127.0.0.1:* to a port).
+  std::string endpoint() const;
+
+ private:
+  zmq::socket_t socket_;
+  bool have_subscriber_ = false;
+  std::string header_buffer_;
+};
+
+// Fills the header fields every frame needs, contract_version included.
+v1::FrameHeader make_frame_header(std::uint64_t seq, std::uint64_t camera_time_ns, int width,
+                                  int height, v1::PixelType type);
+
+}  // namespace slopecast::client

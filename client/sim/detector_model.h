@@ -1,0 +1,31 @@
+// A simple CCD/CMOS detector: photon (Poisson) noise, Gaussian read noise,
+// gain, bias, quantisation and saturation.
+//
+//   ADU = clamp(round((Poisson(expected_e) + Normal(0, read_noise_e)) / gain_e_per_adu
+//                     + bias_adu), 0, full_scale_adu)
+#pragma once
+
+#include <cstdint>
+#include <random>
+#include <span>
+#include <string>
+
+namespace slopecast::sim {
+
+struct DetectorModel {
+  double read_noise_e = 3.0;      // rms read noise, electrons per pixel
+  double gain_e_per_adu = 1.0;    // electrons per ADU
+  double bias_adu = 100.0;        // offset added to every pixel, ADU
+  double full_scale_adu = 65535;  // saturation level, ADU
+  bool photon_noise = true;       // false: expected values without Poisson noise
+};
+
+// Empty when usable; otherwise what is wrong.
+std::string validate(const DetectorModel& d);
+
+// Converts expected photo-electrons per pixel into a u16 frame.
+// Precondition: out.size() == expected_e.size().
+void expose(std::span<const double> expected_e, const DetectorModel& d, std::mt19937_64& rng,
+            std::span<std::uint16_t> out);
+
+}  // namespace slopecast::sim

@@ -1,0 +1,79 @@
+// slopecastd's event loop: frames in, measurements out, control answered.
+//
+// DESIGN
+// One thread runs everything, in Daemon::run(): a zmq_poll over four
+// sources — the frame SUB socket, the control REP socket, the measurement
+// XPUB socket (subscribe/unsubscribe notices, for the subscriber count) and a
+// signalfd for SIGINT/SIGTERM. Frames are handled in arrival order, each to
+// completion (check, measure, publish) before the next is read, so
+// measurements leave in frame order. Housekeeping (rate, rate-limited reject
+// logs) runs in tick() once per kTickPeriod, between frames.
+//
+// Buffers: a frame's bytes belong to the received zmq::message_t and are read
+// in place (no copy); the Pipeline owns its scratch window; the FrameMeasurement
+// and the outgoing v1::Measurement are allocated once and reused.
+//
+// Overflow: if frames arrive faster than they are measured, the SUB socket's
+// high-water mark (frame_queue_depth) makes ZeroMQ drop the excess; the gaps
+// show up as frames_missed. Measurement publishing never blocks: a slow
+// subscriber loses messages at its own high-water mark.
+#pragma once
+
+#include <chrono>
+#include <memory>
+#include <string>
+
+#include <zmq.hpp>
+
+#include "daemon/app/daemon_stats.h"
+#include "daemon/core/pipeline.h"
+#include "daemon/io/daemon_config.h"
+#include "slopecast/v1/control.pb.h"
+#include "slopecast/v1/frame.pb.h"
+#include "slopecast/v1/measurement.pb.h"
+
+namespace slopecast::app {
+
+inline constexpr const char* kVersion = "0.1.0";
+
+class Daemon {
+ public:
+  // Binds the measurement and control endpoints and connects to the frame
+  // endpoint. Throws zmq::error_t (with the endpoint in the log) when a bind
+  // fails; main reports it and exits.
+  explicit Daemon(io::DaemonConfig config);
+  ~Daemon();
+
+  // Runs until a signal arrives on signal_fd (a signalfd for SIGINT/SIGTERM).
+  // Returns the process exit code.
+  int run(int signal_fd);
+
+ private:
+  void handle_frames();
+  void handle_frame(zmq::message_t& header, zmq::message_t* payload, bool extra_parts);
+  void reject(core::FrameReject reason);
+  void handle_control();
+  void handle_subscriptions();
+  void tick(double period_s);
+  void fill_status(v1::StatusReply& s) const;
+
+  io::DaemonConfig config_;
+  core::Pipeline pipeline_;
+  core::FrameMeasurement measurement_;
+  v1::FrameHeader header_scratch_;
+  v1::Measurement out_msg_;
+  DaemonStats stats_;
+  std::chrono::steady_clock::time_point started_;
+
+  // Rate-limited reject logging: at most one line per reason per tick.
+  std::array<std::uint64_t, core::kFrameRejectCount> rejects_logged_{};
+
+  int subscribers_ = 0;
+  zmq::context_t ctx_;
+  zmq::socket_t frames_;
+  zmq::socket_t measurements_;
+  zmq::socket_t control_;
+  zmq::message_t header_msg_, payload_msg_, extra_msg_;
+};
+
+}  // namespace slopecast::app

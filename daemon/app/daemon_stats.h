@@ -1,0 +1,57 @@
+// Counters and the latency window of a running daemon.
+//
+// Owned and touched only by the daemon's loop thread; the control handler
+// reads it on the same thread, so nothing here locks. Recording a frame is a
+// few stores into pre-allocated arrays; the statistics that need sorting are
+// computed only when a status request asks for them.
+#pragma once
+
+#include <array>
+#include <cstdint>
+#include <vector>
+
+#include "daemon/core/frame_check.h"
+
+namespace slopecast::app {
+
+struct LatencySummary {
+  double median_us = 0.0;
+  double p99_us = 0.0;
+  double max_us = 0.0;
+  std::uint32_t frames = 0;  // how many frames the figures cover
+};
+
+class DaemonStats {
+ public:
+  explicit DaemonStats(int latency_window_frames);
+
+  std::uint64_t frames_received = 0;
+  std::uint64_t frames_processed = 0;
+  std::uint64_t measurements_published = 0;
+  std::uint64_t frames_missed = 0;  // seq gaps among accepted frames
+  std::uint64_t last_seq = 0;
+  bool has_last_seq = false;
+  double frame_rate_hz = 0.0;  // updated by tick()
+
+  void count_reject(core::FrameReject r) { ++rejected_[static_cast<std::size_t>(r)]; }
+  std::uint64_t rejected(core::FrameReject r) const { return rejected_[static_cast<std::size_t>(r)]; }
+  std::uint64_t rejected_total() const;
+
+  // Notes an accepted frame's seq; counts the frames skipped since the last one.
+  void note_seq(std::uint64_t seq);
+  // Records one frame's latency, frame received -> measurement sent.
+  void record_latency_us(float us);
+  // Median, p99 and max over the window (sorts a copy: control path only).
+  LatencySummary latency() const;
+  // Called once per housekeeping period with its length, to update the rate.
+  void tick(double period_s);
+
+ private:
+  std::array<std::uint64_t, core::kFrameRejectCount> rejected_{};
+  std::vector<float> latency_us_;  // ring buffer
+  std::size_t latency_next_ = 0;
+  std::size_t latency_filled_ = 0;
+  std::uint64_t processed_at_last_tick_ = 0;
+};
+
+}  // namespace slopecast::app

@@ -1,0 +1,30 @@
+// Copying one subaperture box out of a raw frame into a float window,
+// correcting it on the way: corrected = raw - dark.
+//
+// This is the only place raw pixels are read. It runs once per box per frame,
+// so each pixel is read once and the corrected window stays hot in L1 cache
+// for the centroider that follows.
+#pragma once
+
+#include <span>
+
+#include "daemon/core/image_view.h"
+
+namespace slopecast::core {
+
+// Box of the frame to copy: columns x0 .. x0+width-1, rows y0 .. y0+height-1.
+struct Box {
+  int x0 = 0;
+  int y0 = 0;
+  int width = 0;
+  int height = 0;
+};
+
+// Writes box of image, minus dark where given, to out (row-major, stride
+// box.width). Preconditions: box lies inside image; out.size() >=
+// box.width*box.height; dark is empty or has image.width*image.height values
+// (row-major, ADU). Allocation-free.
+void correct_window(const ImageView& image, std::span<const float> dark, const Box& box,
+                    std::span<float> out);
+
+}  // namespace slopecast::core

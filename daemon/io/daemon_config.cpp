@@ -1,0 +1,184 @@
+#include "daemon/io/daemon_config.h"
+
+#include <fstream>
+#include <set>
+#include <sstream>
+
+#include <fmt/format.h>
+#include <toml.hpp>
+
+#include "daemon/io/fits_image.h"
+
+namespace slopecast::io {
+
+namespace {
+
+// Reads typed values out of one TOML table, remembering which keys were used
+// so that unknown keys can be reported afterwards.
+class TableReader {
+ public:
+  TableReader(const toml::value* table, std::string name) : table_(table), name_(std::move(name)) {}
+
+  std::string error;
+
+  void integer(const char* key, int& out, long min, long max) {
+    const toml::value* v = find(key);
+    if (!v || !error.empty()) return;
+    if (!v->is_integer()) return fail(key, "expected an integer");
+    const long n = static_cast<long>(v->as_integer());
+    if (n < min || n > max) return fail(key, fmt::format("must be {}..{}, got {}", min, max, n));
+    out = static_cast<int>(n);
+  }
+  void number(const char* key, double& out, double min) {
+    const toml::value* v = find(key);
+    if (!v || !error.empty()) return;
+    if (v->is_integer()) out = static_cast<double>(v->as_integer());
+    else if (v->is_floating()) out = v->as_floating();
+    else return fail(key, "expected a number");
+    if (!(out >= min)) return fail(key, fmt::format("must be >= {}, got {}", min, out));
+  }
+  void string(const char* key, std::string& out) {
+    const toml::value* v = find(key);
+    if (!v || !error.empty()) return;
+    if (!v->is_string()) return fail(key, "expected a string");
+    out = v->as_string().str;
+  }
+  // After all reads: any key not read is an error.
+  void reject_unknown() {
+    if (!table_ || !error.empty()) return;
+    for (const auto& [key, value] : table_->as_table())
+      if (!used_.count(key)) {
+        error = fmt::format("[{}] has an unknown key '{}'", name_, key);
+        return;
+      }
+  }
+
+ private:
+  const toml::value* find(const char* key) {
+    used_.insert(key);
+    if (!table_) return nullptr;
+    const auto& t = table_->as_table();
+    auto it = t.find(key);
+    return it == t.end() ? nullptr : &it->second;
+  }
+  void fail(const char* key, const std::string& what) {
+    error = fmt::format("[{}] {}: {}", name_, key, what);
+  }
+  const toml::value* table_;
+  std::string name_;
+  std::set<std::string> used_;
+};
+
+const std::set<std::string> kTables = {"endpoints", "camera", "lenslet_grid", "calibration", "daemon"};
+
+}  // namespace
+
+std::string validate_endpoint(const std::string& e) {
+  for (const char* scheme : {"tcp://", "ipc://", "inproc://"})
+    if (e.rfind(scheme, 0) == 0 && e.size() > std::string(scheme).size()) return {};
+  return fmt::format("'{}' is not a ZeroMQ endpoint (expected tcp://host:port, ipc://path or inproc://name)", e);
+}
+
+std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& text,
+                                                            const std::string& source,
+                                                            const std::filesystem::path& base_dir) {
+  auto fail = [&](const std::string& msg) { return ConfigError{fmt::format("{}: {}", source, msg)}; };
+  toml::value root;
+  try {
+    std::istringstream in(text);
+    root = toml::parse(in, source);
+  } catch (const std::exception& e) {
+    return ConfigError{e.what()};
+  }
+  for (const auto& [key, value] : root.as_table()) {
+    if (!kTables.count(key)) return fail(fmt::format("unknown table or key '{}'", key));
+    if (!value.is_table()) return fail(fmt::format("'{}' must be a table ([{}])", key, key));
+  }
+  auto table = [&](const char* name) -> const toml::value* {
+    const auto& t = root.as_table();
+    auto it = t.find(name);
+    return it == t.end() ? nullptr : &it->second;
+  };
+
+  DaemonConfig c;
+  core::PipelineSettings& p = c.pipeline;
+
+  TableReader ep(table("endpoints"), "endpoints");
+  ep.string("frames_in", c.endpoints.frames_in);
+  ep.string("measurements_out", c.endpoints.measurements_out);
+  ep.string("control", c.endpoints.control);
+  ep.reject_unknown();
+  if (!ep.error.empty()) return fail(ep.error);
+  for (const auto* e : {&c.endpoints.frames_in, &c.endpoints.measurements_out, &c.endpoints.control})
+    if (auto err = validate_endpoint(*e); !err.empty()) return fail("[endpoints] " + err);
+
+  if (!table("camera")) return fail("missing table [camera] (width_px, height_px, pixel_type)");
+  TableReader cam(table("camera"), "camera");
+  std::string pixel_type;
+  cam.integer("width_px", p.camera.width_px, 1, 16384);
+  cam.integer("height_px", p.camera.height_px, 1, 16384);
+  cam.string("pixel_type", pixel_type);
+  cam.reject_unknown();
+  if (!cam.error.empty()) return fail(cam.error);
+  if (p.camera.width_px == 0 || p.camera.height_px == 0)
+    return fail("[camera] width_px and height_px are required");
+  if (pixel_type.empty()) return fail("[camera] pixel_type is required (u8, u16, u32 or f32)");
+  auto format = core::parse_pixel_format(pixel_type);
+  if (!format) return fail(fmt::format("[camera] pixel_type: '{}' is not one of u8, u16, u32, f32", pixel_type));
+  p.camera.format = *format;
+
+  if (!table("lenslet_grid"))
+    return fail("missing table [lenslet_grid] (subapertures_x, subapertures_y, pitch_px, origin_x_px, origin_y_px)");
+  TableReader grid(table("lenslet_grid"), "lenslet_grid");
+  grid.integer("subapertures_x", p.grid.n_subap_x, 1, 4096);
+  grid.integer("subapertures_y", p.grid.n_subap_y, 1, 4096);
+  grid.integer("pitch_px", p.grid.pitch_px, 2, 1024);
+  grid.integer("origin_x_px", p.grid.origin_x_px, 0, 16384);
+  grid.integer("origin_y_px", p.grid.origin_y_px, 0, 16384);
+  grid.reject_unknown();
+  if (!grid.error.empty()) return fail(grid.error);
+  if (p.grid.n_subap_x == 0 || p.grid.n_subap_y == 0 || p.grid.pitch_px == 0)
+    return fail("[lenslet_grid] subapertures_x, subapertures_y and pitch_px are required");
+
+  TableReader cal(table("calibration"), "calibration");
+  std::string dark;
+  cal.string("dark_frame", dark);
+  cal.number("min_flux_adu", p.min_flux_adu, 0.0);
+  cal.reject_unknown();
+  if (!cal.error.empty()) return fail(cal.error);
+
+  TableReader d(table("daemon"), "daemon");
+  d.integer("frame_queue_depth", c.frame_queue_depth, 1, 10000);
+  d.integer("latency_window_frames", c.latency_window_frames, 16, 1000000);
+  d.reject_unknown();
+  if (!d.error.empty()) return fail(d.error);
+
+  if (auto err = core::validate(p.camera); !err.empty()) return fail(err);
+  if (auto err = core::validate(p.grid, p.camera); !err.empty()) return fail(err);
+
+  if (!dark.empty()) {
+    std::filesystem::path path(dark);
+    if (path.is_relative()) path = base_dir / path;
+    c.dark_frame = path;
+    auto image = read_fits_image(path);
+    if (auto* e = std::get_if<FitsError>(&image)) return fail("[calibration] dark_frame: " + e->message);
+    auto& img = std::get<FitsImage>(image);
+    if (img.width != p.camera.width_px || img.height != p.camera.height_px)
+      return fail(fmt::format("[calibration] dark_frame {} is {} x {} px, the camera is {} x {} px",
+                              path.string(), img.width, img.height, p.camera.width_px,
+                              p.camera.height_px));
+    p.dark_adu = std::move(img.pixels);
+  }
+  if (auto err = core::validate(p); !err.empty()) return fail(err);
+  return c;
+}
+
+std::variant<DaemonConfig, ConfigError> load_daemon_config(const std::filesystem::path& file) {
+  std::ifstream in(file, std::ios::binary);
+  if (!in) return ConfigError{fmt::format("cannot open config file '{}'", file.string())};
+  std::stringstream text;
+  text << in.rdbuf();
+  return parse_daemon_config(text.str(), file.string(), file.parent_path());
+}
+
+}  // namespace slopecast::io

@@ -1,0 +1,83 @@
+#include "daemon/io/wire_codec.h"
+
+#include <algorithm>
+
+namespace slopecast::io {
+
+v1::PixelType to_wire(core::PixelFormat f) {
+  switch (f) {
+    case core::PixelFormat::kU8: return v1::PIXEL_TYPE_U8;
+    case core::PixelFormat::kU16: return v1::PIXEL_TYPE_U16;
+    case core::PixelFormat::kU32: return v1::PIXEL_TYPE_U32;
+    case core::PixelFormat::kF32: return v1::PIXEL_TYPE_F32;
+  }
+  return v1::PIXEL_TYPE_UNSPECIFIED;
+}
+
+v1::Centroider to_wire(core::CentroiderKind k) {
+  switch (k) {
+    case core::CentroiderKind::kCog: return v1::CENTROIDER_COG;
+  }
+  return v1::CENTROIDER_UNSPECIFIED;
+}
+
+std::optional<core::PixelFormat> from_wire(int code) {
+  switch (code) {
+    case v1::PIXEL_TYPE_U8: return core::PixelFormat::kU8;
+    case v1::PIXEL_TYPE_U16: return core::PixelFormat::kU16;
+    case v1::PIXEL_TYPE_U32: return core::PixelFormat::kU32;
+    case v1::PIXEL_TYPE_F32: return core::PixelFormat::kF32;
+    default: return std::nullopt;
+  }
+}
+
+std::optional<core::FrameFacts> decode_frame_header(std::span<const std::byte> bytes,
+                                                    v1::FrameHeader& h) {
+  if (bytes.size() > static_cast<std::size_t>(INT32_MAX)) return std::nullopt;
+  if (!h.ParseFromArray(bytes.data(), static_cast<int>(bytes.size()))) return std::nullopt;
+  if (h.contract_version() != kContractVersion) return std::nullopt;
+  core::FrameFacts f;
+  f.width_px = h.width_px();
+  f.height_px = h.height_px();
+  f.pixel_format = from_wire(h.pixel_type());
+  f.row_stride_bytes = h.row_stride_bytes();
+  return f;
+}
+
+namespace {
+template <typename Field, typename Vec>
+void copy_into(Field* field, const Vec& v) {
+  field->Resize(static_cast<int>(v.size()), {});
+  std::copy(v.begin(), v.end(), field->mutable_data());
+}
+}  // namespace
+
+void encode_measurement(const core::FrameMeasurement& m, const MeasurementStamp& s,
+                        v1::Measurement& msg) {
+  msg.set_contract_version(kContractVersion);
+  msg.set_frame_seq(s.frame_seq);
+  msg.set_camera_time_ns(s.camera_time_ns);
+  msg.set_received_time_ns(s.received_time_ns);
+  msg.set_published_time_ns(s.published_time_ns);
+  msg.set_centroider(to_wire(s.centroider));
+  msg.set_slope_unit(v1::SLOPE_UNIT_PX);
+  msg.set_n_subap_x(static_cast<std::uint32_t>(s.n_subap_x));
+  msg.set_n_subap_y(static_cast<std::uint32_t>(s.n_subap_y));
+  copy_into(msg.mutable_slope_x(), m.slope_x_px);
+  copy_into(msg.mutable_slope_y(), m.slope_y_px);
+  copy_into(msg.mutable_flux_adu(), m.flux_adu);
+  copy_into(msg.mutable_peak_adu(), m.peak_adu);
+  copy_into(msg.mutable_flags(), m.flags);
+  auto* valid = msg.mutable_valid();
+  valid->Resize(m.size(), false);
+  for (int i = 0; i < m.size(); ++i) valid->Set(i, m.flags[i] == core::kFlagNone);
+  msg.set_n_valid(static_cast<std::uint32_t>(m.n_valid));
+  msg.set_slope_rms_x(m.slope_rms_x_px);
+  msg.set_slope_rms_y(m.slope_rms_y_px);
+  msg.set_mean_flux_adu(m.mean_flux_adu);
+  auto* t = msg.mutable_stage_times();
+  t->set_check_us(s.check_us);
+  t->set_centroid_us(s.centroid_us);
+}
+
+}  // namespace slopecast::io
