@@ -46,7 +46,7 @@ Daemon::Daemon(io::DaemonConfig config)
   for (zmq::socket_t* s : {&frames_, &measurements_, &control_}) s->set(zmq::sockopt::linger, 0);
   // Report every subscribe and unsubscribe, so we can count subscribers.
   measurements_.set(zmq::sockopt::xpub_verboser, 1);
-  measurements_.set(zmq::sockopt::sndhwm, 64);
+  measurements_.set(zmq::sockopt::sndhwm, config_.measurement_queue_depth);
   try {
     measurements_.bind(config_.endpoints.measurements_out);
   } catch (const zmq::error_t& e) {

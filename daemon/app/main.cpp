@@ -44,6 +44,7 @@ relative to the config file.
 
   [daemon]
   frame_queue_depth     = 4            frames queued before newer ones drop (default 4)
+  measurement_queue_depth = 64         measurements queued per subscriber before drops (default 64)
   latency_window_frames = 4096         frames behind the status latency figures
 )";
 

@@ -12,8 +12,8 @@ namespace slopecast::core {
 // slopecast.v1.SubapertureFlag.
 enum SubapertureFlag : std::uint32_t {
   kFlagNone = 0,
-  kFlagLowFlux = 1u << 0,    // flux below PipelineSettings::min_flux_adu
-  kFlagNonFinite = 1u << 1,  // the centroider could not place the spot
+  kFlagLowFlux = 1u << 0,    // flux below PipelineSettings::min_flux_adu, or not positive
+  kFlagNonFinite = 1u << 1,  // a NaN/infinite pixel in the box, or a non-finite centroid
 };
 
 struct FrameMeasurement {

@@ -59,11 +59,15 @@ void Pipeline::measure(const ImageView& image, FrameMeasurement& out) {
       correct_window(image, settings_.dark_adu, Box{g.box_x0(ix), g.box_y0(iy), g.pitch_px, g.pitch_px},
                      window_);
       const SpotEstimate e = centroider_->measure(window);
+      // A non-finite pixel (possible in f32 frames) must not leak NaN onto
+      // the wire: the flag says why, the numbers become 0.
+      const bool finite = std::isfinite(e.flux) && std::isfinite(e.peak);
+      out.flux_adu[i] = finite ? static_cast<float>(e.flux) : 0.0f;
+      out.peak_adu[i] = finite ? static_cast<float>(e.peak) : 0.0f;
       std::uint32_t flags = kFlagNone;
-      if (!(e.flux >= settings_.min_flux_adu)) flags |= kFlagLowFlux;
-      if (!e.located) flags |= kFlagNonFinite;
-      out.flux_adu[i] = static_cast<float>(e.flux);
-      out.peak_adu[i] = static_cast<float>(e.peak);
+      if (!finite) flags |= kFlagNonFinite;
+      else if (!(e.flux >= settings_.min_flux_adu && e.flux > 0.0)) flags |= kFlagLowFlux;
+      else if (!e.located) flags |= kFlagNonFinite;
       out.flags[i] = flags;
       if (flags != kFlagNone) {
         out.slope_x_px[i] = 0.0f;

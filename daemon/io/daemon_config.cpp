@@ -149,6 +149,7 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
 
   TableReader d(table("daemon"), "daemon");
   d.integer("frame_queue_depth", c.frame_queue_depth, 1, 10000);
+  d.integer("measurement_queue_depth", c.measurement_queue_depth, 1, 100000);
   d.integer("latency_window_frames", c.latency_window_frames, 16, 1000000);
   d.reject_unknown();
   if (!d.error.empty()) return fail(d.error);

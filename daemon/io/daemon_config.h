@@ -31,6 +31,9 @@ struct DaemonConfig {
   // (ZeroMQ receive high-water mark, in messages). Small: a loop controller
   // wants the newest frame, not a backlog.
   int frame_queue_depth = 4;
+  // Measurements queued per subscriber before newer ones are dropped for
+  // that subscriber (ZeroMQ send high-water mark, in messages).
+  int measurement_queue_depth = 64;
   // Frames over which the status latency median/p99 are computed.
   int latency_window_frames = 4096;
   // Dark frame path as resolved (empty: none). The pixels are in pipeline.dark_adu.

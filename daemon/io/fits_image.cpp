@@ -33,10 +33,9 @@ std::variant<FitsImage, FitsError> read_fits_image(const std::filesystem::path& 
   if (!std::filesystem::exists(path)) return fail("no such file");
   int status = 0;
   fitsfile* raw = nullptr;
-  // "file://" keeps cfitsio from reading brackets or other characters in the
-  // name as its extended-filename syntax.
-  const std::string name = "file://" + path.string();
-  if (fits_open_image(&raw, name.c_str(), READONLY, &status)) return fail(fits_reason(status));
+  // The "diskfile" calls take the name literally: brackets and other
+  // characters are not read as cfitsio's extended-filename syntax.
+  if (fits_open_diskfile(&raw, path.c_str(), READONLY, &status)) return fail(fits_reason(status));
   FitsHandle f(raw);
   int bitpix = 0, naxis = 0;
   long naxes[3] = {0, 0, 0};
@@ -68,11 +67,15 @@ std::string write_fits_image(const std::filesystem::path& path, int width, int h
   };
   if (width < 1 || height < 1 || pixels.size() != static_cast<std::size_t>(width) * height)
     return fail(fmt::format("{} pixels do not make a {} x {} image", pixels.size(), width, height));
+  // Write beside the target and rename over it, so a reader never sees a
+  // half-written calibration file and a failed write leaves the old one.
+  std::filesystem::path tmp = path;
+  tmp += ".partial";
+  std::error_code ec;
+  std::filesystem::remove(tmp, ec);
   int status = 0;
   fitsfile* raw = nullptr;
-  // Leading '!' asks cfitsio to replace an existing file.
-  const std::string name = "!file://" + path.string();
-  if (fits_create_file(&raw, name.c_str(), &status)) return fail(fits_reason(status));
+  if (fits_create_diskfile(&raw, tmp.c_str(), &status)) return fail(fits_reason(status));
   FitsHandle f(raw);
   long naxes[2] = {width, height};
   if (fits_create_img(f.get(), FLOAT_IMG, 2, naxes, &status)) return fail(fits_reason(status));
@@ -89,6 +92,8 @@ std::string write_fits_image(const std::filesystem::path& path, int width, int h
     return fail(fits_reason(status));
   fitsfile* done = f.release();
   if (fits_close_file(done, &status)) return fail(fits_reason(status));
+  std::filesystem::rename(tmp, path, ec);
+  if (ec) return fail("cannot rename the finished file into place: " + ec.message());
   return {};
 }
 
