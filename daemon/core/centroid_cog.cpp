@@ -1,6 +1,7 @@
 #include "daemon/core/centroid_cog.h"
 
 #include <algorithm>
+#include <cassert>
 #include <cmath>
 #include <limits>
 
@@ -13,23 +14,49 @@ std::string_view centroider_name(CentroiderKind kind) {
   return "?";
 }
 
-SpotEstimate CogCentroider::measure(const WindowView& w) const {
-  // Row sums in float (a row is at most a few dozen pixels), frame sums in
-  // double so that large windows of bright u32 pixels keep their precision.
-  double sum = 0.0, sum_x = 0.0, sum_y = 0.0;
-  float peak = -std::numeric_limits<float>::infinity();
-  for (int y = 0; y < w.height; ++y) {
-    const float* row = w.data + static_cast<std::size_t>(y) * w.width;
-    float row_sum = 0.0f, row_x = 0.0f, row_peak = row[0];
-    for (int x = 0; x < w.width; ++x) {
-      row_sum += row[x];
-      row_x += static_cast<float>(x) * row[x];
-      row_peak = std::max(row_peak, row[x]);
+CogCentroider::CogCentroider(int max_width)
+    : col_sum_(static_cast<std::size_t>(max_width)),
+      col_y_sum_(static_cast<std::size_t>(max_width)),
+      col_peak_(static_cast<std::size_t>(max_width)) {}
+
+// Accumulating per column, across rows, makes every update element-wise over
+// a row, so the compiler vectorises it without reordering any floating-point
+// sum; a per-row horizontal sum is a serial dependency chain. Over a whole
+// strip row (e.g. 240 px) the vector loop also amortises its set-up, which a
+// 15-px window row does not. Callgrind, 240 x 240 u16 frame, 16 x 16 boxes:
+// 1.25 M instructions per frame window by window, 0.48 M strip by strip.
+void CogCentroider::accumulate_columns(const float* data, int width, int height, int stride) {
+  assert(static_cast<std::size_t>(width) <= col_sum_.size());
+  float* __restrict cs = col_sum_.data();
+  float* __restrict cys = col_y_sum_.data();
+  float* __restrict cp = col_peak_.data();
+  for (int x = 0; x < width; ++x) {
+    cs[x] = data[x];
+    cys[x] = 0.0f;
+    cp[x] = data[x];
+  }
+  for (int y = 1; y < height; ++y) {
+    const float* __restrict row = data + static_cast<std::size_t>(y) * stride;
+    const float fy = static_cast<float>(y);
+    for (int x = 0; x < width; ++x) {
+      cs[x] += row[x];
+      cys[x] += fy * row[x];
+      cp[x] = cp[x] < row[x] ? row[x] : cp[x];
     }
-    sum += row_sum;
-    sum_x += row_x;
-    sum_y += static_cast<double>(y) * row_sum;
-    peak = std::max(peak, row_peak);
+  }
+}
+
+SpotEstimate CogCentroider::reduce(int x0, int width) const {
+  // Column totals are float (at most a window height of terms each); the
+  // short sum over columns runs in double.
+  double sum = 0.0, sum_x = 0.0, sum_y = 0.0;
+  float peak = col_peak_[x0];
+  for (int x = 0; x < width; ++x) {
+    const float c = col_sum_[x0 + x];
+    sum += c;
+    sum_x += static_cast<double>(x) * c;
+    sum_y += col_y_sum_[x0 + x];
+    peak = std::max(peak, col_peak_[x0 + x]);
   }
   SpotEstimate e;
   e.flux = sum;
@@ -41,6 +68,17 @@ SpotEstimate CogCentroider::measure(const WindowView& w) const {
   e.y = y;
   e.located = true;
   return e;
+}
+
+SpotEstimate CogCentroider::measure(const WindowView& w) {
+  accumulate_columns(w.data, w.width, w.height, w.stride);
+  return reduce(0, w.width);
+}
+
+void CogCentroider::measure_strip(const StripView& strip, std::span<SpotEstimate> out) {
+  assert(out.size() >= static_cast<std::size_t>(strip.n_windows));
+  accumulate_columns(strip.data, strip.width(), strip.height, strip.stride);
+  for (int k = 0; k < strip.n_windows; ++k) out[k] = reduce(k * strip.window_width, strip.window_width);
 }
 
 }  // namespace slopecast::core

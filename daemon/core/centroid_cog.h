@@ -10,15 +10,29 @@
 // sigma_e^2 * sum x_i^2 / N_ph^2 (ibid. section 1.3).
 #pragma once
 
+#include <vector>
+
 #include "daemon/core/centroider.h"
 
 namespace slopecast::core {
 
 class CogCentroider final : public Centroider {
  public:
+  // max_width: the widest window or strip it will be given, px.
+  explicit CogCentroider(int max_width);
   CentroiderKind kind() const override { return CentroiderKind::kCog; }
   // located is false when the flux is not positive or the result is not finite.
-  SpotEstimate measure(const WindowView& window) const override;
+  // Precondition: window.width <= max_width.
+  SpotEstimate measure(const WindowView& window) override;
+  // Precondition: strip.width() <= max_width.
+  void measure_strip(const StripView& strip, std::span<SpotEstimate> out) override;
+
+ private:
+  // Sums each column over the rows: sum I, sum y*I, max I (scratch).
+  void accumulate_columns(const float* data, int width, int height, int stride);
+  // Reduces columns [x0, x0+width) of the accumulators to one estimate.
+  SpotEstimate reduce(int x0, int width) const;
+  std::vector<float> col_sum_, col_y_sum_, col_peak_;  // scratch, one entry per column
 };
 
 }  // namespace slopecast::core

@@ -6,9 +6,11 @@
 // flux and peak, which the pipeline uses for validity and spot metrics.
 //
 // Implementations are pure and allocation-free in measure(); any scratch
-// space is sized in the constructor from the window size.
+// space is sized in the constructor from the window size. measure() may use
+// that scratch, so one centroider object serves one thread.
 #pragma once
 
+#include <span>
 #include <string_view>
 
 #include "daemon/core/image_view.h"
@@ -31,7 +33,16 @@ class Centroider {
  public:
   virtual ~Centroider() = default;
   virtual CentroiderKind kind() const = 0;
-  virtual SpotEstimate measure(const WindowView& window) const = 0;
+  // One window.
+  virtual SpotEstimate measure(const WindowView& window) = 0;
+  // Every window of a strip (one row of subapertures): out[k] for window k.
+  // The default calls measure() per window; a centroider whose arithmetic
+  // runs column-wise overrides it to sweep whole strip rows at once, which
+  // vectorises far better than 10-15 pixel window rows.
+  // Precondition: out.size() >= strip.n_windows.
+  virtual void measure_strip(const StripView& strip, std::span<SpotEstimate> out) {
+    for (int k = 0; k < strip.n_windows; ++k) out[k] = measure(strip.window(k));
+  }
 };
 
 }  // namespace slopecast::core

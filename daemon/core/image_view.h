@@ -30,15 +30,32 @@ struct ImageView {
   }
 };
 
-// A corrected window: float pixels, contiguous, row-major (stride = width).
+// A corrected window: float pixels, row-major, rows `stride` floats apart.
 // Window-local coordinates follow the same convention as the frame: the
 // first pixel's centre is (0, 0).
 struct WindowView {
   const float* data = nullptr;
   int width = 0;   // px
   int height = 0;  // px
+  int stride = 0;  // floats from one row start to the next, >= width
 
-  float at(int x, int y) const { return data[static_cast<std::size_t>(y) * width + x]; }
+  float at(int x, int y) const { return data[static_cast<std::size_t>(y) * stride + x]; }
+  const float* row(int y) const { return data + static_cast<std::size_t>(y) * stride; }
+};
+
+// A horizontal strip of n_windows equal windows side by side (one row of
+// subapertures), corrected, row-major with rows `stride` floats apart.
+// Window k covers strip columns k*window_width ... (k+1)*window_width - 1.
+struct StripView {
+  const float* data = nullptr;
+  int window_width = 0;  // px
+  int height = 0;        // px
+  int n_windows = 0;
+  int stride = 0;        // floats, >= n_windows * window_width
+
+  int width() const { return n_windows * window_width; }
+  const float* row(int y) const { return data + static_cast<std::size_t>(y) * stride; }
+  WindowView window(int k) const { return {data + static_cast<std::size_t>(k) * window_width, window_width, height, stride}; }
 };
 
 }  // namespace slopecast::core

@@ -6,14 +6,14 @@
 #include <fmt/format.h>
 
 #include "daemon/core/centroid_cog.h"
-#include "daemon/core/window_correction.h"
+#include "daemon/core/box_correction.h"
 
 namespace slopecast::core {
 
 namespace {
-std::unique_ptr<Centroider> make_centroider(CentroiderKind kind) {
+std::unique_ptr<Centroider> make_centroider(CentroiderKind kind, int strip_width_px) {
   switch (kind) {
-    case CentroiderKind::kCog: return std::make_unique<CogCentroider>();
+    case CentroiderKind::kCog: return std::make_unique<CogCentroider>(strip_width_px);
   }
   return nullptr;
 }
@@ -35,8 +35,9 @@ std::string validate(const PipelineSettings& s) {
 
 Pipeline::Pipeline(PipelineSettings settings)
     : settings_(std::move(settings)),
-      centroider_(make_centroider(settings_.centroider)),
-      window_(static_cast<std::size_t>(settings_.grid.pitch_px) * settings_.grid.pitch_px) {
+      centroider_(make_centroider(settings_.centroider, settings_.grid.n_subap_x * settings_.grid.pitch_px)),
+      strip_(static_cast<std::size_t>(settings_.grid.pitch_px) * settings_.grid.n_subap_x * settings_.grid.pitch_px),
+      estimates_(static_cast<std::size_t>(settings_.grid.n_subap_x)) {
   assert(validate(settings_).empty());
 }
 
@@ -50,15 +51,16 @@ void Pipeline::measure(const ImageView& image, FrameMeasurement& out) {
   const LensletGrid& g = settings_.grid;
   assert(out.size() == g.count());
   const double centre = 0.5 * (g.pitch_px - 1);  // box centre, window-local px
-  const WindowView window{window_.data(), g.pitch_px, g.pitch_px};
+  const int strip_width = g.n_subap_x * g.pitch_px;
+  const StripView strip{strip_.data(), g.pitch_px, g.pitch_px, g.n_subap_x, strip_width};
   double sum_x2 = 0.0, sum_y2 = 0.0, sum_flux = 0.0;
   int n_valid = 0;
   for (int iy = 0; iy < g.n_subap_y; ++iy) {
+    correct_box(image, settings_.dark_adu, Box{g.origin_x_px, g.box_y0(iy), strip_width, g.pitch_px}, strip_);
+    centroider_->measure_strip(strip, estimates_);
     for (int ix = 0; ix < g.n_subap_x; ++ix) {
       const int i = iy * g.n_subap_x + ix;
-      correct_window(image, settings_.dark_adu, Box{g.box_x0(ix), g.box_y0(iy), g.pitch_px, g.pitch_px},
-                     window_);
-      const SpotEstimate e = centroider_->measure(window);
+      const SpotEstimate& e = estimates_[ix];
       // A non-finite pixel (possible in f32 frames) must not leak NaN onto
       // the wire: the flag says why, the numbers become 0.
       const bool finite = std::isfinite(e.flux) && std::isfinite(e.peak);

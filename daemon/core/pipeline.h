@@ -1,7 +1,12 @@
 // One frame in, one FrameMeasurement out: the pure heart of the daemon.
 //
-//   for each subaperture box:  correct (raw - dark)  ->  centroid  ->
-//   slope = position - zero point  ->  validity  ->  frame statistics
+//   for each row of subapertures: correct the strip of boxes (raw - dark)
+//   -> centroid every box -> slope = position - zero point -> validity;
+//   then frame statistics.
+//
+// Working a strip at a time reads each pixel of the grid once, keeps the
+// corrected strip (pitch x grid width floats) in L1 cache, and gives the
+// inner loops full grid-width rows to vectorise over.
 //
 // Call order: construct with settings that passed validate() (the
 // constructor allocates every buffer), then call measure() once per frame;
@@ -50,7 +55,8 @@ class Pipeline {
  private:
   PipelineSettings settings_;
   std::unique_ptr<Centroider> centroider_;
-  std::vector<float> window_;  // scratch: one corrected box
+  std::vector<float> strip_;             // scratch: one corrected row of boxes
+  std::vector<SpotEstimate> estimates_;  // scratch: one per box of the strip
 };
 
 }  // namespace slopecast::core

@@ -25,7 +25,7 @@ NoiseRun run(int trials, int n, double sigma, double photons, double read_e, std
   std::mt19937_64 rng(seed);
   std::uniform_real_distribution<double> offset(-0.5, 0.5);
   std::normal_distribution<double> read(0.0, read_e > 0 ? read_e : 1.0);
-  core::CogCentroider cog;
+  core::CogCentroider cog(64);
   std::vector<double> expected(static_cast<std::size_t>(n) * n);
   std::vector<float> w(expected.size());
   const double c = 0.5 * (n - 1);
@@ -44,7 +44,7 @@ NoiseRun run(int trials, int n, double sigma, double photons, double read_e, std
         w[i] = static_cast<float>(v);
         sum_dx2 += (x - x0) * (x - x0);
       }
-    const core::SpotEstimate e = cog.measure({w.data(), n, n});
+    const core::SpotEstimate e = cog.measure({w.data(), n, n, n});
     REQUIRE(e.located);
     r.var_x += (e.x - x0) * (e.x - x0);
     r.var_y += (e.y - y0) * (e.y - y0);

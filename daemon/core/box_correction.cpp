@@ -1,4 +1,4 @@
-#include "daemon/core/window_correction.h"
+#include "daemon/core/box_correction.h"
 
 #include <cassert>
 #include <cstdint>
@@ -26,7 +26,7 @@ void correct_typed(const ImageView& image, std::span<const float> dark, const Bo
 
 }  // namespace
 
-void correct_window(const ImageView& image, std::span<const float> dark, const Box& box,
+void correct_box(const ImageView& image, std::span<const float> dark, const Box& box,
                     std::span<float> out) {
   assert(box.x0 >= 0 && box.y0 >= 0 && box.x0 + box.width <= image.width &&
          box.y0 + box.height <= image.height);

@@ -1,9 +1,9 @@
-// Copying one subaperture box out of a raw frame into a float window,
-// correcting it on the way: corrected = raw - dark.
+// Copying a box of a raw frame (in the pipeline: one row of subapertures)
+// into float pixels, correcting it on the way: corrected = raw - dark.
 //
-// This is the only place raw pixels are read. It runs once per box per frame,
-// so each pixel is read once and the corrected window stays hot in L1 cache
-// for the centroider that follows.
+// This is the only place raw pixels are read. Each grid pixel is read once
+// per frame, and the corrected strip stays hot in L1 cache for the centroider
+// that follows.
 #pragma once
 
 #include <span>
@@ -21,10 +21,10 @@ struct Box {
 };
 
 // Writes box of image, minus dark where given, to out (row-major, stride
-// box.width). Preconditions: box lies inside image; out.size() >=
+// box.width floats). Preconditions: box lies inside image; out.size() >=
 // box.width*box.height; dark is empty or has image.width*image.height values
 // (row-major, ADU). Allocation-free.
-void correct_window(const ImageView& image, std::span<const float> dark, const Box& box,
+void correct_box(const ImageView& image, std::span<const float> dark, const Box& box,
                     std::span<float> out);
 
 }  // namespace slopecast::core
