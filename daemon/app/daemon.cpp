@@ -23,6 +23,14 @@ std::uint64_t wall_ns() {
                                         .count());
 }
 
+// True for tcp:// endpoints that other hosts could reach.
+bool reachable_off_host(const std::string& endpoint) {
+  if (endpoint.rfind("tcp://", 0) != 0) return false;
+  for (const char* local : {"tcp://127.", "tcp://localhost:", "tcp://[::1]:"})
+    if (endpoint.rfind(local, 0) == 0) return false;
+  return true;
+}
+
 float micros(std::chrono::steady_clock::duration d) {
   return std::chrono::duration<float, std::micro>(d).count();
 }
@@ -47,6 +55,11 @@ Daemon::Daemon(io::DaemonConfig config)
   // Report every subscribe and unsubscribe, so we can count subscribers.
   measurements_.set(zmq::sockopt::xpub_verboser, 1);
   measurements_.set(zmq::sockopt::sndhwm, config_.measurement_queue_depth);
+  for (const std::string* e : {&config_.endpoints.measurements_out, &config_.endpoints.control})
+    if (reachable_off_host(*e))
+      spdlog::warn("binding {} is reachable from other hosts, and slopecastd has no access control yet; "
+                   "prefer 127.0.0.1 unless the network is trusted",
+                   *e);
   try {
     measurements_.bind(config_.endpoints.measurements_out);
   } catch (const zmq::error_t& e) {

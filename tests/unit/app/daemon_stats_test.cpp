@@ -6,9 +6,9 @@
 using namespace slopecast;
 
 TEST_CASE("latency percentiles are nearest-rank over the window", "[stats]") {
-  // Nearest-rank definition (NIST/SEMATECH e-Handbook, "percentile"): the
-  // smallest sample with at least p of the samples at or below it. For
-  // 1..100: median 50, p99 99.
+  // Nearest-rank percentile (the textbook definition, from memory): the
+  // smallest sample with at least a fraction p of the samples at or below
+  // it. Derived by counting for 1..100: median 50, p99 99.
   app::DaemonStats s(100);
   for (int i = 100; i >= 1; --i) s.record_latency_us(static_cast<float>(i));
   auto l = s.latency();

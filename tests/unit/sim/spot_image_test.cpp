@@ -9,8 +9,9 @@
 using namespace slopecast;
 
 TEST_CASE("interval fractions are erf differences of the normal CDF", "[sim][spot]") {
-  // Handbook values of the standard normal distribution (Abramowitz & Stegun
-  // 26.2): P(|Z| < 1) = 0.682689492, P(|Z| < 2) = 0.954499736.
+  // Handbook values of the standard normal distribution (Abramowitz & Stegun,
+  // ch. 26 tables; section number from memory): P(|Z| < 1) = 0.682689492,
+  // P(|Z| < 2) = 0.954499736.
   CHECK(sim::gaussian_interval_fraction(-1, 1, 0, 1) == Approx(0.682689492).margin(1e-9));
   CHECK(sim::gaussian_interval_fraction(-4, 4, 0, 2) == Approx(0.954499736).margin(1e-9));
   CHECK(sim::gaussian_interval_fraction(3, 4, 3, 0.5) == Approx(0.5 * 0.954499736).margin(1e-9));
@@ -44,7 +45,8 @@ TEST_CASE("a spot is clipped to its own box", "[sim][spot]") {
   sim::add_gaussian_spot(img, 20, 9.6, 5.0, 1.0, 100.0, sim::ClipRect{0, 0, 10, 10});
   for (int y = 0; y < 10; ++y)
     for (int x = 10; x < 20; ++x) CHECK(img[y * 20 + x] == 0.0);
-  // Columns 0..9 hold P(X < 9.5) of the spot: Phi(-0.1) = 0.46017 (A&S table).
+  // Columns 0..9 hold P(X < 9.5) of the spot: Phi(-0.1) = 0.46017 (normal
+  // distribution table, A&S ch. 26).
   double sum = 0.0;
   for (double v : img) sum += v;
   CHECK(sum == Approx(100.0 * 0.460172).epsilon(1e-4));
