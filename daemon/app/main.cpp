@@ -77,16 +77,16 @@ int main(int argc, char** argv) {
     const auto& c = std::get<io::DaemonConfig>(loaded);
     const auto& p = c.pipeline;
     std::cout << "config OK: " << check_path << "\n"
-              << "  camera      " << p.camera.width_px << " x " << p.camera.height_px << " px, "
+              << "  camera        " << p.camera.width_px << " x " << p.camera.height_px << " px, "
               << core::pixel_format_name(p.camera.format) << "\n"
-              << "  grid        " << p.grid.n_subap_x << " x " << p.grid.n_subap_y << " subapertures, pitch "
+              << "  grid          " << p.grid.n_subap_x << " x " << p.grid.n_subap_y << " subapertures, pitch "
               << p.grid.pitch_px << " px, origin (" << p.grid.origin_x_px << ", " << p.grid.origin_y_px
               << ") px\n"
-              << "  dark        " << (c.dark_frame.empty() ? "none" : c.dark_frame.string()) << "\n"
-              << "  min flux    " << p.min_flux_adu << " ADU\n"
-              << "  frames in   " << c.endpoints.frames_in << "\n"
-              << "  measurements " << c.endpoints.measurements_out << "\n"
-              << "  control     " << c.endpoints.control << "\n";
+              << "  dark          " << (c.dark_frame.empty() ? "none" : c.dark_frame.string()) << "\n"
+              << "  min flux      " << p.min_flux_adu << " ADU\n"
+              << "  frames in     " << c.endpoints.frames_in << "\n"
+              << "  measurements  " << c.endpoints.measurements_out << "\n"
+              << "  control       " << c.endpoints.control << "\n";
     return 0;
   }
   if (config_path.empty()) {
