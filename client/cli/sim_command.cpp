@@ -125,7 +125,7 @@ void run_sim(const SimOptions& o) {
     }
   }
   const double elapsed = std::chrono::duration<double>(clock::now() - start).count();
-  std::cout << fmt::format("sent {} frames in {:.2f} s ({:.1f} Hz), {} dropped by the socket\n", sent, elapsed,
+  std::cout << fmt::format("sent {} frames in {:.2f} s ({:.1f} Hz); {} dropped because a subscriber's queue was full\n", sent, elapsed,
                            elapsed > 0 ? sent / elapsed : 0.0, dropped);
 }
 

@@ -6,6 +6,10 @@ FramePublisher::FramePublisher(zmq::context_t& ctx, const std::string& endpoint,
     : socket_(ctx, zmq::socket_type::xpub) {
   socket_.set(zmq::sockopt::linger, 1000);
   socket_.set(zmq::sockopt::sndhwm, high_water_mark);
+  // Without this a PUB socket drops silently at the high-water mark; with it
+  // send() reports EAGAIN, so publish() can return false and callers count
+  // the drop.
+  socket_.set(zmq::sockopt::xpub_nodrop, 1);
   socket_.bind(endpoint);
 }
 

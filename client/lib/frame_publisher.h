@@ -28,7 +28,8 @@ class FramePublisher {
   [[nodiscard]] bool wait_for_subscriber(std::chrono::milliseconds timeout);
 
   // Sends header + pixels as one two-part message. Never blocks: returns
-  // false if ZeroMQ dropped it (no subscriber or queue full).
+  // false if a subscriber's queue is full (the frame is dropped). With no
+  // subscriber at all ZeroMQ discards the frame and this returns true.
   bool publish(const v1::FrameHeader& header, std::span<const std::byte> pixels);
 
   // Sends arbitrary parts as one message (tests use it for malformed frames).

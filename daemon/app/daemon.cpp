@@ -73,6 +73,14 @@ Daemon::Daemon(io::DaemonConfig config)
     throw;
   }
   frames_.set(zmq::sockopt::rcvhwm, config_.frame_queue_depth);
+  // A sender that claims a frame far larger than the camera's is broken or
+  // hostile: ZeroMQ drops its connection instead of buffering gigabytes. Row
+  // padding up to 4x the packed width is allowed, plus 1 MiB for headers.
+  const auto& cam = config_.pipeline.camera;
+  const std::int64_t frame_bytes =
+      static_cast<std::int64_t>(cam.width_px) * cam.height_px * core::bytes_per_pixel(cam.format);
+  frames_.set(zmq::sockopt::maxmsgsize, 4 * frame_bytes + (1 << 20));
+  control_.set(zmq::sockopt::maxmsgsize, std::int64_t{1} << 16);
   frames_.set(zmq::sockopt::subscribe, "");
   frames_.connect(config_.endpoints.frames_in);
   // Pre-size the outgoing message's repeated fields so the first frame does
