@@ -12,6 +12,7 @@
 
 #include "client/cli/commands.h"
 #include "client/lib/frame_publisher.h"
+#include "client/lib/measurement_tally.h"
 #include "client/sim/frame_bank.h"
 #include "daemon/io/fits_image.h"
 
@@ -112,9 +113,7 @@ void run_sim(const SimOptions& o) {
     std::this_thread::sleep_until(start + period * static_cast<long>(seq));
     const std::size_t k = seq % bank.frames.size();
     header.set_seq(seq);
-    header.set_camera_time_ns(static_cast<std::uint64_t>(
-        std::chrono::duration_cast<std::chrono::nanoseconds>(std::chrono::system_clock::now().time_since_epoch())
-            .count()));
+    header.set_camera_time_ns(client::wall_clock_ns());
     const auto& frame = bank.frames[k];
     if (pub->publish(header, std::as_bytes(std::span(frame)))) ++sent;
     else ++dropped;

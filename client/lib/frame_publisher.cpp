@@ -46,10 +46,6 @@ bool FramePublisher::publish_parts(std::span<const std::string> parts) {
   return true;
 }
 
-std::string FramePublisher::endpoint() const {
-  return socket_.get(zmq::sockopt::last_endpoint);
-}
-
 v1::FrameHeader make_frame_header(std::uint64_t seq, std::uint64_t camera_time_ns, int width,
                                   int height, v1::PixelType type) {
   v1::FrameHeader h;

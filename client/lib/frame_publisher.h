@@ -35,9 +35,6 @@ class FramePublisher {
   // Sends arbitrary parts as one message (tests use it for malformed frames).
   bool publish_parts(std::span<const std::string> parts);
 
-  // The endpoint actually bound (resolves tcp://127.0.0.1:* to a port).
-  std::string endpoint() const;
-
  private:
   zmq::socket_t socket_;
   bool have_subscriber_ = false;

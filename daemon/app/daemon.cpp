@@ -93,11 +93,11 @@ Daemon::~Daemon() = default;
 int Daemon::run(int signal_fd) {
   const auto& g = config_.pipeline.grid;
   spdlog::info("slopecastd {} ready: frames from {}, measurements on {}, control on {}; {}x{} {} camera, "
-               "{}x{} subapertures of {} px, dark {}",
+               "{}x{} subapertures of {} px, {} centroider, dark {}",
                kVersion, config_.endpoints.frames_in, config_.endpoints.measurements_out,
                config_.endpoints.control, config_.pipeline.camera.width_px,
                config_.pipeline.camera.height_px, core::pixel_format_name(config_.pipeline.camera.format),
-               g.n_subap_x, g.n_subap_y, g.pitch_px,
+               g.n_subap_x, g.n_subap_y, g.pitch_px, core::centroider_name(config_.pipeline.centroider),
                config_.dark_frame.empty() ? std::string("none") : config_.dark_frame.string());
   zmq::pollitem_t items[] = {
       {frames_.handle(), 0, ZMQ_POLLIN, 0},

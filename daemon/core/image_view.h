@@ -39,8 +39,6 @@ struct WindowView {
   int height = 0;  // px
   int stride = 0;  // floats from one row start to the next, >= width
 
-  float at(int x, int y) const { return data[static_cast<std::size_t>(y) * stride + x]; }
-  const float* row(int y) const { return data + static_cast<std::size_t>(y) * stride; }
 };
 
 // A horizontal strip of n_windows equal windows side by side (one row of
@@ -54,7 +52,6 @@ struct StripView {
   int stride = 0;        // floats, >= n_windows * window_width
 
   int width() const { return n_windows * window_width; }
-  const float* row(int y) const { return data + static_cast<std::size_t>(y) * stride; }
   WindowView window(int k) const { return {data + static_cast<std::size_t>(k) * window_width, window_width, height, stride}; }
 };
 

@@ -24,6 +24,30 @@ struct FitsCloser {
 };
 using FitsHandle = std::unique_ptr<fitsfile, FitsCloser>;
 
+// Writes the whole file at tmp; returns cfitsio's reason on failure.
+std::string write_fits_file(const std::filesystem::path& tmp, int width, int height,
+                            std::span<const float> pixels, std::span<const FitsCard> cards,
+                            const std::string& history) {
+  int status = 0;
+  fitsfile* raw = nullptr;
+  if (fits_create_diskfile(&raw, tmp.c_str(), &status)) return fits_reason(status);
+  FitsHandle f(raw);
+  long naxes[2] = {width, height};
+  if (fits_create_img(f.get(), FLOAT_IMG, 2, naxes, &status)) return fits_reason(status);
+  for (const FitsCard& c : cards) {
+    double v = c.value;
+    if (fits_update_key(f.get(), TDOUBLE, c.keyword.c_str(), &v, c.comment.c_str(), &status))
+      return fits_reason(status);
+  }
+  if (!history.empty() && fits_write_history(f.get(), history.c_str(), &status)) return fits_reason(status);
+  long first[2] = {1, 1};
+  if (fits_write_pix(f.get(), TFLOAT, first, static_cast<LONGLONG>(pixels.size()),
+                     const_cast<float*>(pixels.data()), &status))
+    return fits_reason(status);
+  if (fits_close_file(f.release(), &status)) return fits_reason(status);
+  return {};
+}
+
 }  // namespace
 
 std::variant<FitsImage, FitsError> read_fits_image(const std::filesystem::path& path) {
@@ -73,27 +97,16 @@ std::string write_fits_image(const std::filesystem::path& path, int width, int h
   tmp += ".partial";
   std::error_code ec;
   std::filesystem::remove(tmp, ec);
-  int status = 0;
-  fitsfile* raw = nullptr;
-  if (fits_create_diskfile(&raw, tmp.c_str(), &status)) return fail(fits_reason(status));
-  FitsHandle f(raw);
-  long naxes[2] = {width, height};
-  if (fits_create_img(f.get(), FLOAT_IMG, 2, naxes, &status)) return fail(fits_reason(status));
-  for (const FitsCard& c : cards) {
-    double v = c.value;
-    if (fits_update_key(f.get(), TDOUBLE, c.keyword.c_str(), &v, c.comment.c_str(), &status))
-      return fail(fits_reason(status));
+  const std::string error = write_fits_file(tmp, width, height, pixels, cards, history);
+  if (!error.empty()) {
+    std::filesystem::remove(tmp, ec);
+    return fail(error);
   }
-  if (!history.empty() && fits_write_history(f.get(), history.c_str(), &status))
-    return fail(fits_reason(status));
-  long first[2] = {1, 1};
-  if (fits_write_pix(f.get(), TFLOAT, first, static_cast<LONGLONG>(pixels.size()),
-                     const_cast<float*>(pixels.data()), &status))
-    return fail(fits_reason(status));
-  fitsfile* done = f.release();
-  if (fits_close_file(done, &status)) return fail(fits_reason(status));
   std::filesystem::rename(tmp, path, ec);
-  if (ec) return fail("cannot rename the finished file into place: " + ec.message());
+  if (ec) {
+    std::filesystem::remove(tmp, ec);
+    return fail("cannot rename the finished file into place: " + ec.message());
+  }
   return {};
 }
 

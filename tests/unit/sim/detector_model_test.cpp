@@ -41,6 +41,9 @@ TEST_CASE("exposures saturate at full scale and never go below zero", "[sim][det
   std::mt19937_64 rng(1);
   sim::expose(expected, d, rng, out);
   CHECK(out[3] == 1000);
+  // Zero signal with 50 e- read noise: about half the draws are negative and
+  // must clamp to 0, not wrap around to ~65535.
+  for (int i = 0; i < 3; ++i) CHECK(out[i] <= 200);
 }
 
 TEST_CASE("a mean dark converges on the bias", "[sim][detector]") {
