@@ -7,36 +7,48 @@ namespace slopecast::core {
 
 namespace {
 
-template <typename T>
-void correct_typed(const ImageView& image, std::span<const float> dark, const Box& box,
-                   float* out) {
+// One loop per (dark?, column max?) combination, so the common cases stay
+// branch-free and vectorise.
+template <typename T, bool kDark, bool kColumnMax>
+void correct_typed(const ImageView& image, const float* dark, const Box& box, float* out,
+                   float* col_max) {
   for (int y = 0; y < box.height; ++y) {
     const std::byte* row = image.row(box.y0 + y);
     float* dst = out + static_cast<std::size_t>(y) * box.width;
-    if (dark.empty()) {
-      for (int x = 0; x < box.width; ++x)
-        dst[x] = static_cast<float>(load_pixel<T>(row, box.x0 + x));
-    } else {
-      const float* d = dark.data() + static_cast<std::size_t>(box.y0 + y) * image.width + box.x0;
-      for (int x = 0; x < box.width; ++x)
-        dst[x] = static_cast<float>(load_pixel<T>(row, box.x0 + x)) - d[x];
+    const float* d = kDark ? dark + static_cast<std::size_t>(box.y0 + y) * image.width + box.x0 : nullptr;
+    for (int x = 0; x < box.width; ++x) {
+      const float raw = static_cast<float>(load_pixel<T>(row, box.x0 + x));
+      if constexpr (kColumnMax) col_max[x] = (y == 0 || col_max[x] < raw) ? raw : col_max[x];
+      if constexpr (kDark) dst[x] = raw - d[x];
+      else dst[x] = raw;
     }
   }
+}
+
+template <typename T>
+void correct_dispatch(const ImageView& image, std::span<const float> dark, const Box& box, float* out,
+                      std::span<float> col_max) {
+  const bool has_dark = !dark.empty(), has_max = !col_max.empty();
+  if (has_dark && has_max) correct_typed<T, true, true>(image, dark.data(), box, out, col_max.data());
+  else if (has_dark) correct_typed<T, true, false>(image, dark.data(), box, out, nullptr);
+  else if (has_max) correct_typed<T, false, true>(image, nullptr, box, out, col_max.data());
+  else correct_typed<T, false, false>(image, nullptr, box, out, nullptr);
 }
 
 }  // namespace
 
 void correct_box(const ImageView& image, std::span<const float> dark, const Box& box,
-                    std::span<float> out) {
+                 std::span<float> out, std::span<float> raw_column_max) {
   assert(box.x0 >= 0 && box.y0 >= 0 && box.x0 + box.width <= image.width &&
          box.y0 + box.height <= image.height);
   assert(out.size() >= static_cast<std::size_t>(box.width) * box.height);
   assert(dark.empty() || dark.size() == static_cast<std::size_t>(image.width) * image.height);
+  assert(raw_column_max.empty() || raw_column_max.size() >= static_cast<std::size_t>(box.width));
   switch (image.format) {
-    case PixelFormat::kU8: correct_typed<std::uint8_t>(image, dark, box, out.data()); break;
-    case PixelFormat::kU16: correct_typed<std::uint16_t>(image, dark, box, out.data()); break;
-    case PixelFormat::kU32: correct_typed<std::uint32_t>(image, dark, box, out.data()); break;
-    case PixelFormat::kF32: correct_typed<float>(image, dark, box, out.data()); break;
+    case PixelFormat::kU8: correct_dispatch<std::uint8_t>(image, dark, box, out.data(), raw_column_max); break;
+    case PixelFormat::kU16: correct_dispatch<std::uint16_t>(image, dark, box, out.data(), raw_column_max); break;
+    case PixelFormat::kU32: correct_dispatch<std::uint32_t>(image, dark, box, out.data(), raw_column_max); break;
+    case PixelFormat::kF32: correct_dispatch<float>(image, dark, box, out.data(), raw_column_max); break;
   }
 }
 

@@ -21,10 +21,13 @@ struct Box {
 };
 
 // Writes box of image, minus dark where given, to out (row-major, stride
-// box.width floats). Preconditions: box lies inside image; out.size() >=
+// box.width floats). When raw_column_max is not empty it also receives, per
+// box column, the largest raw pixel value (before the dark), for the
+// saturation check. Preconditions: box lies inside image; out.size() >=
 // box.width*box.height; dark is empty or has image.width*image.height values
-// (row-major, ADU). Allocation-free.
+// (row-major, ADU); raw_column_max is empty or has >= box.width entries.
+// Allocation-free.
 void correct_box(const ImageView& image, std::span<const float> dark, const Box& box,
-                    std::span<float> out);
+                 std::span<float> out, std::span<float> raw_column_max = {});
 
 }  // namespace slopecast::core

@@ -1,6 +1,7 @@
 // The result of measuring one frame: per-subaperture arrays plus frame
-// statistics. Sized once by Pipeline (at configuration time) and reused for
-// every frame, so measuring a frame does not allocate.
+// statistics and a frame-level health word. Sized once by Pipeline (at
+// configuration time) and reused for every frame, so measuring a frame does
+// not allocate.
 #pragma once
 
 #include <cstdint>
@@ -8,12 +9,25 @@
 
 namespace slopecast::core {
 
-// Bits of FrameMeasurement::flags; 0 means valid. Values match
-// slopecast.v1.SubapertureFlag.
+// Bits of FrameMeasurement::flags, one per reason; 0 means valid. Several
+// can be set at once. Values match slopecast.v1.SubapertureFlag.
 enum SubapertureFlag : std::uint32_t {
   kFlagNone = 0,
-  kFlagLowFlux = 1u << 0,    // flux below PipelineSettings::min_flux_adu, or not positive
-  kFlagNonFinite = 1u << 1,  // a NaN/infinite pixel in the box, or a non-finite centroid
+  kFlagLowFlux = 1u << 0,     // background-subtracted flux below min_flux_adu, or not positive
+  kFlagNonFinite = 1u << 1,   // a NaN/infinite pixel in the box, or a non-finite centroid
+  kFlagLowSnr = 1u << 2,      // flux / its noise below min_snr
+  kFlagOutsideBox = 1u << 3,  // the centroid lies outside the subaperture box
+  kFlagSaturated = 1u << 4,   // a raw pixel in the box at or above saturation_adu
+};
+
+// Bits of FrameMeasurement::health; 0 means a controller may act on the
+// frame. Values match slopecast.v1.FrameHealth.
+enum FrameHealthBit : std::uint32_t {
+  kHealthOk = 0,
+  kHealthSaturated = 1u << 0,  // at least one subaperture holds a saturated pixel
+  kHealthNoLight = 1u << 1,    // no subaperture has significant light (all low flux / low SNR)
+  kHealthFewValid = 1u << 2,   // fewer valid subapertures than min_valid_fraction of the grid
+  kHealthNonFinite = 1u << 3,  // a NaN/infinite pixel somewhere in the grid
 };
 
 struct FrameMeasurement {
@@ -21,20 +35,26 @@ struct FrameMeasurement {
   // point, positive toward larger x / y; exactly 0 where invalid.
   std::vector<float> slope_x_px;
   std::vector<float> slope_y_px;
-  std::vector<float> flux_adu;  // sum of corrected pixels in the box
-  std::vector<float> peak_adu;  // brightest corrected pixel in the box
+  // Sum of corrected pixels in the box: raw - dark - background, ADU.
+  std::vector<float> flux_adu;
+  // Brightest corrected pixel in the box (raw - dark - background), ADU.
+  std::vector<float> peak_adu;
+  // Background estimated for the box (median of its border after the dark),
+  // ADU per pixel; 0 where background estimation is off.
+  std::vector<float> background_adu;
+  // flux / its estimated noise (see background.h); 0 where flux <= 0.
+  std::vector<float> snr;
   std::vector<std::uint32_t> flags;  // SubapertureFlag bits
 
   int n_valid = 0;
-  float slope_rms_x_px = 0.0f;  // rms over valid subapertures
+  int n_saturated = 0;           // subapertures with kFlagSaturated
+  float slope_rms_x_px = 0.0f;   // rms over valid subapertures
   float slope_rms_y_px = 0.0f;
-  float mean_flux_adu = 0.0f;   // mean over valid subapertures
+  float mean_flux_adu = 0.0f;    // mean over valid subapertures
+  std::uint32_t health = kHealthOk;  // FrameHealthBit bits
 
   void resize(int n) {
-    slope_x_px.assign(n, 0.0f);
-    slope_y_px.assign(n, 0.0f);
-    flux_adu.assign(n, 0.0f);
-    peak_adu.assign(n, 0.0f);
+    for (auto* v : {&slope_x_px, &slope_y_px, &flux_adu, &peak_adu, &background_adu, &snr}) v->assign(n, 0.0f);
     flags.assign(n, kFlagNone);
   }
   int size() const { return static_cast<int>(flags.size()); }

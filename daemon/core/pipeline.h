@@ -1,8 +1,15 @@
 // One frame in, one FrameMeasurement out: the pure heart of the daemon.
 //
-//   for each row of subapertures: correct the strip of boxes (raw - dark)
-//   -> centroid every box -> slope = position - zero point -> validity;
-//   then frame statistics.
+//   pass 1, pixels -- for each row of subapertures: correct the strip of
+//   boxes (raw - dark, noting each column's raw maximum) -> per box: border
+//   statistics and background subtraction (background.h) -> centroid every
+//   box;
+//   pass 2, decisions -- the frame's median pixel noise; per box: flux
+//   significance, validity flags, slope = position - zero point; then frame
+//   statistics and the frame health word.
+//
+// Validity (frame_measurement.h): a subaperture is valid only when no flag
+// is set; every reason that applies is flagged, not just the first.
 //
 // Working a strip at a time reads each pixel of the grid once, keeps the
 // corrected strip (pitch x grid width floats) in L1 cache, and gives the
@@ -15,9 +22,11 @@
 #pragma once
 
 #include <memory>
+#include <optional>
 #include <string>
 #include <vector>
 
+#include "daemon/core/background.h"
 #include "daemon/core/centroider.h"
 #include "daemon/core/frame_measurement.h"
 #include "daemon/core/image_view.h"
@@ -31,10 +40,26 @@ struct PipelineSettings {
   // Dark frame, ADU, row-major camera.width_px * camera.height_px values; empty
   // for none. Subtracted from every frame before centroiding.
   std::vector<float> dark_adu;
-  // A subaperture whose corrected flux is below this is invalid, ADU.
+  // Per-box background estimate, subtracted after the dark (background.h).
+  BackgroundMode background = BackgroundMode::kBorder;
+  // A subaperture whose background-subtracted flux is below this is invalid, ADU.
   double min_flux_adu = 0.0;
+  // A subaperture whose flux significance (background.h) is below this is
+  // invalid; 0 turns the check off.
+  double min_snr = 5.0;
+  // A raw pixel (before the dark) at or above this saturates its
+  // subaperture, ADU. nullopt: the pixel type's full scale (255, 65535,
+  // 4294967295; no check for f32).
+  std::optional<double> saturation_adu;
+  // Fewer valid subapertures than this fraction of the grid sets
+  // kHealthFewValid on the frame; 0 turns the check off.
+  double min_valid_fraction = 0.5;
   CentroiderKind centroider = CentroiderKind::kCog;
 };
+
+// The raw level at which a pixel of this format counts as saturated by
+// default (its full scale); infinity for f32.
+double full_scale_adu(PixelFormat format);
 
 // Empty when settings can build a Pipeline; otherwise what is wrong.
 std::string validate(const PipelineSettings& settings);
@@ -53,10 +78,20 @@ class Pipeline {
   void measure(const ImageView& image, FrameMeasurement& out);
 
  private:
+  // Pass 2 of measure(): flags, slopes and frame figures from the per-box
+  // results of pass 1.
+  void decide(FrameMeasurement& out);
+
   PipelineSettings settings_;
   std::unique_ptr<Centroider> centroider_;
   std::vector<float> strip_;             // scratch: one corrected row of boxes
-  std::vector<SpotEstimate> estimates_;  // scratch: one per box of the strip
+  std::vector<float> column_max_;        // scratch: raw maximum of each strip column
+  std::vector<float> border_;            // scratch: one box's border ring
+  std::vector<BorderStats> borders_;     // scratch: one per box of the grid
+  std::vector<SpotEstimate> estimates_;  // scratch: one per box of the grid
+  std::vector<float> raw_max_;           // scratch: raw maximum per box of the grid
+  std::vector<float> sigmas_;            // scratch: for the frame's median pixel noise
+  float saturation_adu_;                 // resolved settings_.saturation_adu
 };
 
 }  // namespace slopecast::core

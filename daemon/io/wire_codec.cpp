@@ -68,6 +68,10 @@ void encode_measurement(const core::FrameMeasurement& m, const MeasurementStamp&
   copy_into(msg.mutable_flux_adu(), m.flux_adu);
   copy_into(msg.mutable_peak_adu(), m.peak_adu);
   copy_into(msg.mutable_flags(), m.flags);
+  copy_into(msg.mutable_background_adu(), m.background_adu);
+  copy_into(msg.mutable_snr(), m.snr);
+  msg.set_health(m.health);
+  msg.set_n_saturated(static_cast<std::uint32_t>(m.n_saturated));
   auto* valid = msg.mutable_valid();
   valid->Resize(m.size(), false);
   for (int i = 0; i < m.size(); ++i) valid->Set(i, m.flags[i] == core::kFlagNone);

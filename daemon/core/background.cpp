@@ -1,0 +1,118 @@
+#include "daemon/core/background.h"
+
+#include <algorithm>
+#include <cassert>
+#include <cmath>
+#include <cstring>
+
+namespace slopecast::core {
+
+namespace {
+constexpr float kMadToSigma = 1.4826f;  // 1 / Phi^-1(3/4)
+const float kRoundingSigma = static_cast<float>(1.0 / std::sqrt(12.0));
+
+// Median of v (reorders it). Even counts take the mean of the two middle values.
+float median_of(float* v, int n) {
+  const int mid = n / 2;
+  std::nth_element(v, v + mid, v + n);
+  const float upper = v[mid];
+  if (n % 2) return upper;
+  const float lower = *std::max_element(v, v + mid);
+  return 0.5f * (lower + upper);
+}
+}  // namespace
+
+const char* background_mode_name(BackgroundMode m) {
+  switch (m) {
+    case BackgroundMode::kNone: return "none";
+    case BackgroundMode::kBorder: return "border";
+  }
+  return "?";
+}
+
+bool parse_background_mode(const char* name, BackgroundMode& out) {
+  for (BackgroundMode m : {BackgroundMode::kNone, BackgroundMode::kBorder})
+    if (std::strcmp(background_mode_name(m), name) == 0) {
+      out = m;
+      return true;
+    }
+  return false;
+}
+
+int border_pixel_count(int width, int height) {
+  if (width < 3 || height < 3) return width * height;
+  return 2 * width + 2 * (height - 2);
+}
+
+BorderStats border_stats(const WindowView& w, std::span<float> scratch) {
+  const int n = border_pixel_count(w.width, w.height);
+  assert(scratch.size() >= 2 * static_cast<std::size_t>(n));
+  float* ring = scratch.data();  // the ring's values, in ring order
+  float* work = ring + n;        // reordered by the selections
+  int k = 0;
+  auto row = [&](int y) { return w.data + static_cast<std::size_t>(y) * w.stride; };
+  if (w.width < 3 || w.height < 3) {
+    for (int y = 0; y < w.height; ++y)
+      for (int x = 0; x < w.width; ++x) ring[k++] = row(y)[x];
+  } else {
+    for (int x = 0; x < w.width; ++x) ring[k++] = row(0)[x];
+    for (int x = 0; x < w.width; ++x) ring[k++] = row(w.height - 1)[x];
+    for (int y = 1; y < w.height - 1; ++y) {
+      ring[k++] = row(y)[0];
+      ring[k++] = row(y)[w.width - 1];
+    }
+  }
+  BorderStats b;
+  b.n_border = n;
+  for (int i = 0; i < n; ++i)
+    if (!std::isfinite(ring[i])) {
+      b.finite = false;  // nth_element needs a strict weak order: no NaN
+      return b;
+    }
+  std::copy(ring, ring + n, work);
+  b.median_adu = median_of(work, n);
+  for (int i = 0; i < n; ++i) work[i] = std::abs(ring[i] - b.median_adu);
+  const float mad_sigma = kMadToSigma * median_of(work, n);
+  // Median and MAD only locate the ring and clip its outliers (hot pixels,
+  // a spot tail) at 3.5 robust sigma. The level is the mean of the pixels
+  // kept: on integer data the median sticks to whole ADU, and each 1 ADU
+  // step moves a 225-pixel box's flux by 225 ADU, which gave empty boxes a
+  // lumpy, long-tailed flux (measured: a significance of 6.3 among 51 200
+  // empty boxes). The MAD is also a noisy rms (37 % efficiency at a
+  // Gaussian), so the rms of the kept pixels is the noise estimate.
+  const double median = b.median_adu;
+  const float clip = 3.5f * std::max(mad_sigma, kRoundingSigma);
+  double sum = 0.0, sum2 = 0.0;
+  int kept = 0;
+  for (int i = 0; i < n; ++i) {
+    const double d = ring[i] - median;
+    if (std::abs(d) > clip) continue;
+    sum += d;
+    sum2 += d * d;
+    ++kept;
+  }
+  // kept >= n/2 always: the median lies within any clip > 0 of half the ring.
+  const double mean_d = sum / kept;
+  b.level_adu = static_cast<float>(median + mean_d);
+  b.n_kept = kept;
+  const double var = kept > 1 ? (sum2 - kept * mean_d * mean_d) / (kept - 1) : 0.0;
+  b.sigma_adu = std::max(static_cast<float>(std::sqrt(std::max(var, 0.0))), kRoundingSigma);
+  return b;
+}
+
+void subtract_constant(float* data, int width, int height, int stride, float value) {
+  for (int y = 0; y < height; ++y) {
+    float* r = data + static_cast<std::size_t>(y) * stride;
+    for (int x = 0; x < width; ++x) r[x] -= value;
+  }
+}
+
+double flux_snr(double flux, double sigma_pix, int n_pixels, int n_ring, bool subtracted) {
+  if (!(flux > 0.0) || !(sigma_pix > 0.0)) return 0.0;
+  const double n = n_pixels;
+  double var = n;
+  if (subtracted && n_ring > 0) var = std::max(n + n * n / n_ring - 2.0 * n, 1.0);
+  return flux / (sigma_pix * std::sqrt(var));
+}
+
+}  // namespace slopecast::core

@@ -1,0 +1,80 @@
+// The local background of a subaperture and the noise of its flux.
+//
+// Without a dark frame the camera bias and any diffuse light sit under every
+// spot. Left in, a uniform pedestal B (ADU/px) over an N-pixel box pulls the
+// CoG toward the box centre by the gain F/(F + B N) (derived: the pedestal's
+// own centroid is the box centre; tests/REFERENCES.md R1.5), and it makes an
+// unlit box look bright. The pipeline therefore estimates the background of
+// each box from its border ring -- the 4(p-1) outermost pixels of a p x p
+// box, where a spot kept inside the box puts almost no light -- and
+// subtracts it.
+//
+// Estimator: the ring's median m and robust sigma 1.4826 MAD (the median
+// absolute deviation scaled to a Gaussian's rms; Hampel 1974, JASA 69, 383)
+// clip every ring pixel further than 3.5 robust sigma from m (hot pixels, a
+// spot tail); the background level is the mean of the n pixels kept and the
+// pixel noise sigma_pix is their rms, floored at 1/sqrt(12) ADU, the rounding
+// noise of an integer readout (derived: variance of a uniform distribution
+// of width 1).
+//
+// The flux F = sum over the box of (pixel - level) then has noise
+//
+//   sigma_F^2 = sigma_pix^2 * (N + N^2/n - 2N)     (background subtracted)
+//   sigma_F^2 = sigma_pix^2 * N                    (not subtracted)
+//
+// N^2/n is the level's own error, counted once per pixel; -2N is its
+// covariance with the ring pixels that are summed in F too (each has
+// cov(p_j, level) = sigma^2/n, so the ring's sum has cov sigma^2 with the
+// level, counted 2N times). Derived; checked by simulation in
+// tests/unit/core/background_test.cpp. The spot's own photon noise is left
+// out (the detector gain is not known here), so the figure is the
+// significance of the flux against an empty box: with no light it is close
+// to N(0, 1), and a floor of 5 ("common practice": 3-5 sigma detection
+// thresholds) keeps a dark box from passing as lit.
+#pragma once
+
+#include <span>
+
+#include "daemon/core/image_view.h"
+
+namespace slopecast::core {
+
+enum class BackgroundMode {
+  kNone,          // nothing subtracted (a dark frame is expected to do it)
+  kBorder,        // clipped mean of the box's border ring, subtracted from the box
+};
+
+// "none" / "border"; parse gives false for anything else.
+const char* background_mode_name(BackgroundMode m);
+bool parse_background_mode(const char* name, BackgroundMode& out);
+
+// Smallest box side for which kBorder leaves an interior for the spot.
+inline constexpr int kMinPitchForBorderBackground = 5;
+
+struct BorderStats {
+  float median_adu = 0.0f;     // median of the border ring
+  float level_adu = 0.0f;      // mean of the ring pixels kept: the background
+  float sigma_adu = 0.0f;      // rms of the pixels kept, floored at 1/sqrt(12)
+  int n_border = 0;            // pixels in the ring
+  int n_kept = 0;              // ring pixels within the clip
+  bool finite = true;          // false if the ring holds a NaN/inf (stats then 0)
+};
+
+// Number of border pixels of a w x h window (the whole window when either
+// side is below 3).
+int border_pixel_count(int width, int height);
+
+// Level and noise of the window's border ring, as above. scratch must hold at
+// least 2 * border_pixel_count(w, h) floats; it is overwritten.
+// Allocation-free.
+BorderStats border_stats(const WindowView& window, std::span<float> scratch);
+
+// Subtracts value from every pixel of the window (the window's memory is
+// writable scratch in the pipeline, hence the cast-free float* argument).
+void subtract_constant(float* data, int width, int height, int stride, float value);
+
+// Significance of a flux, per the formula above. n_pixels: box pixels;
+// n_ring: ring pixels behind the level (BorderStats::n_kept).
+double flux_snr(double flux_adu, double sigma_pix_adu, int n_pixels, int n_ring, bool subtracted);
+
+}  // namespace slopecast::core
