@@ -3,7 +3,12 @@
 // command is a thin layer over client/lib and client/sim.
 #pragma once
 
+#include <optional>
+#include <string>
+
 #include <CLI/CLI.hpp>
+
+#include "daemon/io/daemon_config.h"
 
 namespace slopecast::cli {
 
@@ -16,5 +21,18 @@ void add_status_command(CLI::App& app);
 
 // True once SIGINT or SIGTERM has arrived (installed by main).
 bool stop_requested();
+// 128 + the signal that asked to stop.
+int stopped_exit_code();
+
+// Prints "slopecast <command>: why" to stderr and sets exit code 2.
+void fail(const char* command, const std::string& why);
+
+// The endpoint check every command shares (daemon/io/endpoint.h); on a bad
+// endpoint it fails the command with the sentence and returns false.
+bool endpoint_ok(const char* command, const char* option, const std::string& endpoint);
+
+// A slopecastd config read for its camera, grid and endpoints (its dark is
+// not loaded: it may not exist yet). On error fails the command.
+std::optional<io::DaemonConfig> read_daemon_config(const char* command, const std::string& path);
 
 }  // namespace slopecast::cli

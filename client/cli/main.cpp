@@ -1,4 +1,9 @@
 // slopecast: the command-line companion of slopecastd.
+//
+// Signals: SIGINT and SIGTERM set a flag that every command's loop checks
+// (the waits in client/lib return early on them); the command prints what it
+// has and exits with the shell's convention, 128 + the signal number (130
+// for Ctrl-C, 143 for SIGTERM), so scripts can tell a stop from success.
 #include <csignal>
 #include <atomic>
 
@@ -6,26 +11,32 @@
 
 namespace slopecast::cli {
 namespace {
-std::atomic<bool> g_stop{false};
-void on_signal(int) { g_stop = true; }
+std::atomic<int> g_stop_signal{0};
+void on_signal(int sig) { g_stop_signal = sig; }
 }  // namespace
 
 int& exit_code() {
   static int code = 0;
   return code;
 }
-bool stop_requested() { return g_stop.load(); }
+bool stop_requested() { return g_stop_signal.load() != 0; }
+int stopped_exit_code() { return 128 + g_stop_signal.load(); }
 }  // namespace slopecast::cli
 
 int main(int argc, char** argv) {
   using namespace slopecast::cli;
-  std::signal(SIGINT, on_signal);
-  std::signal(SIGTERM, on_signal);
+  struct sigaction sa {};
+  sa.sa_handler = on_signal;
+  sigemptyset(&sa.sa_mask);
+  sa.sa_flags = 0;  // no SA_RESTART: blocking calls return EINTR at once
+  sigaction(SIGINT, &sa, nullptr);
+  sigaction(SIGTERM, &sa, nullptr);
   CLI::App app{"slopecast: simulate a lenslet camera, watch and query slopecastd."};
   app.require_subcommand(1);
   add_sim_command(app);
   add_watch_command(app);
   add_status_command(app);
   CLI11_PARSE(app, argc, argv);
+  if (stop_requested() && exit_code() == 0) exit_code() = stopped_exit_code();
   return exit_code();
 }

@@ -1,7 +1,9 @@
 // `slopecast sim`: a stand-in lenslet camera. Publishes frames of
 // pixel-integrated Gaussian spots at known sub-pixel offsets (new offsets
-// every frame) with photon and read noise on a bias, at a fixed rate, and can
-// write the true offsets to a CSV file and a mean dark frame to FITS.
+// every frame) on diffuse background light, with photon and read noise on a
+// bias, at a fixed rate, in any pixel type and camera size; can write the
+// true offsets to a CSV file and a mean dark frame to FITS. `--config` takes
+// the camera, the grid and the frames endpoint from a slopecastd config.
 #include <fstream>
 #include <iostream>
 #include <memory>
@@ -14,89 +16,137 @@
 #include "client/lib/frame_publisher.h"
 #include "client/lib/measurement_tally.h"
 #include "client/sim/frame_bank.h"
+#include "daemon/core/pipeline.h"
 #include "daemon/io/fits_image.h"
+#include "daemon/io/wire_codec.h"
 
 namespace slopecast::cli {
 
 namespace {
 
+constexpr const char* kCmd = "sim";
+
 struct SimOptions {
-  std::string frames_out = "tcp://127.0.0.1:6110";
+  std::string config;
+  std::string frames_out = io::kDefaultFramesEndpoint;
   int subapertures_x = 16, subapertures_y = 16, pitch_px = 15;
+  int origin_x_px = 0, origin_y_px = 0;
+  int width_px = 0, height_px = 0;  // 0: just the grid (origin + subapertures x pitch)
+  std::string pixel_type = "u16";
   double rate_hz = 1000.0;
   std::uint64_t frames = 0;  // 0: until interrupted
   int distinct_frames = 200;
   double spot_sigma_px = 0.9;
   double photons = 5000.0;
+  double background_e = 0.0;
   double max_offset_px = 1.5;
   double read_noise_e = 3.0;
   double bias_adu = 100.0;
   double gain_e_per_adu = 1.0;
+  double full_scale_adu = 0.0;  // 0: the pixel type's full scale
   std::uint64_t seed = 1;
   std::string truth_csv;
   std::string write_dark;
   int dark_frames = 100;
   double wait_subscriber_s = 10.0;
+  bool block_when_full = false;
   std::string source_id = "slopecast-sim";
 };
 
-void fail(const std::string& why) {
-  std::cerr << "slopecast sim: " << why << "\n";
-  exit_code() = 2;
-}
-
-void run_sim(const SimOptions& o) {
+void run_sim(SimOptions o) {
+  if (!o.config.empty()) {
+    auto c = read_daemon_config(kCmd, o.config);
+    if (!c) return;
+    const auto& p = c->pipeline;
+    o.frames_out = c->endpoints.frames_in;
+    o.width_px = p.camera.width_px;
+    o.height_px = p.camera.height_px;
+    o.pixel_type = std::string(core::pixel_format_name(p.camera.format));
+    o.subapertures_x = p.grid.n_subap_x;
+    o.subapertures_y = p.grid.n_subap_y;
+    o.pitch_px = p.grid.pitch_px;
+    o.origin_x_px = p.grid.origin_x_px;
+    o.origin_y_px = p.grid.origin_y_px;
+  }
+  const auto format = core::parse_pixel_format(o.pixel_type);
+  if (!format) return fail(kCmd, fmt::format("--pixel-type '{}' is not one of u8, u16, u32, f32", o.pixel_type));
+  if (o.write_dark.empty() && !endpoint_ok(kCmd, "--frames-out", o.frames_out)) return;
   sim::SpotFieldSettings field;
-  field.grid = core::LensletGrid{o.subapertures_x, o.subapertures_y, o.pitch_px, 0, 0};
+  field.grid = core::LensletGrid{o.subapertures_x, o.subapertures_y, o.pitch_px, o.origin_x_px, o.origin_y_px};
   field.spot_sigma_px = o.spot_sigma_px;
   field.photons_per_spot = o.photons;
   field.max_offset_px = o.max_offset_px;
+  core::CameraSpec camera{o.width_px ? o.width_px : o.origin_x_px + o.subapertures_x * o.pitch_px,
+                          o.height_px ? o.height_px : o.origin_y_px + o.subapertures_y * o.pitch_px, *format};
   sim::DetectorModel detector;
   detector.read_noise_e = o.read_noise_e;
   detector.bias_adu = o.bias_adu;
   detector.gain_e_per_adu = o.gain_e_per_adu;
-  if (auto e = sim::validate(field); !e.empty()) return fail(e);
-  if (auto e = sim::validate(detector); !e.empty()) return fail(e);
-  const int width = o.subapertures_x * o.pitch_px, height = o.subapertures_y * o.pitch_px;
+  const double type_full_scale = std::min(core::full_scale_adu(*format), 4294967295.0);
+  detector.full_scale_adu = o.full_scale_adu > 0 ? o.full_scale_adu : type_full_scale;
+  if (detector.full_scale_adu > type_full_scale)
+    return fail(kCmd, fmt::format("--full-scale-adu {} exceeds what {} pixels hold ({})", detector.full_scale_adu,
+                                  o.pixel_type, type_full_scale));
+  if (auto e = core::validate(camera); !e.empty()) return fail(kCmd, e);
+  if (auto e = core::validate(field.grid, camera); !e.empty()) return fail(kCmd, e);
+  if (auto e = sim::validate(field); !e.empty()) return fail(kCmd, e);
+  if (auto e = sim::validate(detector); !e.empty()) return fail(kCmd, e);
+  const auto keep_going = [] { return !stop_requested(); };
 
   if (!o.write_dark.empty()) {
-    const auto dark = sim::make_mean_dark(detector, width, height, o.dark_frames, o.seed ^ 0xda4c);
+    const auto dark = sim::make_mean_dark(detector, camera.width_px, camera.height_px, o.dark_frames,
+                                          o.seed ^ 0xda4c, keep_going);
+    if (dark.empty()) {
+      std::cerr << "slopecast sim: stopped before the dark was complete; nothing written\n";
+      return;
+    }
     const io::FitsCard cards[] = {{"NCOMBINE", double(o.dark_frames), "dark exposures averaged"},
                                   {"BIAS", o.bias_adu, "[adu] simulated bias level"},
                                   {"RDNOISE", o.read_noise_e, "[e-] simulated read noise"}};
-    if (auto e = io::write_fits_image(o.write_dark, width, height, dark, cards,
+    if (auto e = io::write_fits_image(o.write_dark, camera.width_px, camera.height_px, dark, cards,
                                       "mean dark made by slopecast sim");
         !e.empty())
-      return fail(e);
-    std::cout << fmt::format("wrote {} x {} mean of {} dark frames to {}\n", width, height, o.dark_frames,
-                             o.write_dark);
+      return fail(kCmd, e);
+    std::cout << fmt::format("wrote {} x {} mean of {} dark frames to {}\n", camera.width_px, camera.height_px,
+                             o.dark_frames, o.write_dark);
     return;
   }
 
   std::ofstream truth;
   if (!o.truth_csv.empty()) {
     truth.open(o.truth_csv);
-    if (!truth) return fail("cannot write truth CSV '" + o.truth_csv + "'");
+    if (!truth) return fail(kCmd, "cannot write truth CSV '" + o.truth_csv + "'");
     truth << "frame_seq,subaperture,true_dx_px,true_dy_px\n";
   }
-  const int distinct =
-      static_cast<int>(o.frames > 0 ? std::min<std::uint64_t>(o.frames, o.distinct_frames) : o.distinct_frames);
-  std::cout << fmt::format("rendering {} distinct {} x {} frames ({} x {} spots, sigma {} px, {} photons)...\n",
-                           distinct, width, height, o.subapertures_x, o.subapertures_y, o.spot_sigma_px, o.photons)
-            << std::flush;
-  const sim::FrameBank bank = sim::make_frame_bank(field, detector, width, height, distinct, o.seed);
-
   zmq::context_t ctx(1);
   std::unique_ptr<client::FramePublisher> pub;
   try {
     pub = std::make_unique<client::FramePublisher>(ctx, o.frames_out);
   } catch (const zmq::error_t& e) {
-    return fail(fmt::format("cannot bind {}: {}", o.frames_out, e.what()));
+    return fail(kCmd, fmt::format("cannot bind {}: {}", o.frames_out, e.what()));
+  }
+  const int distinct =
+      static_cast<int>(o.frames > 0 ? std::min<std::uint64_t>(o.frames, o.distinct_frames) : o.distinct_frames);
+  std::cout << fmt::format("rendering {} distinct {} x {} {} frames ({} x {} spots, sigma {} px, {} photons, "
+                           "background {} e-/px)...\n",
+                           distinct, camera.width_px, camera.height_px, o.pixel_type, o.subapertures_x,
+                           o.subapertures_y, o.spot_sigma_px, o.photons, o.background_e)
+            << std::flush;
+  const sim::FrameBank bank =
+      sim::make_frame_bank(field, detector, camera, o.background_e, distinct, o.seed, keep_going);
+  if (stop_requested()) {
+    std::cout << "stopped while rendering; sent 0 frames\n";
+    return;
   }
   if (o.wait_subscriber_s > 0) {
     std::cout << "waiting for a subscriber on " << o.frames_out << "...\n" << std::flush;
-    if (!pub->wait_for_subscriber(std::chrono::milliseconds(static_cast<long>(o.wait_subscriber_s * 1000))))
-      return fail(fmt::format("no subscriber on {} within {} s", o.frames_out, o.wait_subscriber_s));
+    if (!pub->wait_for_subscriber(std::chrono::milliseconds(static_cast<long>(o.wait_subscriber_s * 1000)))) {
+      if (stop_requested()) {
+        std::cout << "stopped while waiting for a subscriber; sent 0 frames\n";
+        return;
+      }
+      return fail(kCmd, fmt::format("no subscriber on {} within {} s", o.frames_out, o.wait_subscriber_s));
+    }
   }
   std::cout << fmt::format("publishing on {} at {} Hz{}\n", o.frames_out, o.rate_hz,
                            o.frames ? fmt::format(", {} frames", o.frames) : std::string(" until stopped"))
@@ -106,26 +156,38 @@ void run_sim(const SimOptions& o) {
   const auto period = std::chrono::duration_cast<clock::duration>(std::chrono::duration<double>(1.0 / o.rate_hz));
   const auto start = clock::now();
   std::uint64_t sent = 0, dropped = 0;
-  v1::FrameHeader header = client::make_frame_header(0, 0, width, height, v1::PIXEL_TYPE_U16);
+  v1::FrameHeader header =
+      client::make_frame_header(0, 0, camera.width_px, camera.height_px, io::to_wire(camera.format));
   header.set_exposure_us(1e6 / o.rate_hz);
   header.set_source_id(o.source_id);
   for (std::uint64_t seq = 0; (o.frames == 0 || seq < o.frames) && !stop_requested(); ++seq) {
-    std::this_thread::sleep_until(start + period * static_cast<long>(seq));
+    // Sleep in slices so that a stop is honoured promptly even at low rates.
+    const auto due = start + period * static_cast<long>(seq);
+    while (!stop_requested() && clock::now() < due)
+      std::this_thread::sleep_for(std::min<clock::duration>(due - clock::now(), std::chrono::milliseconds(50)));
+    if (stop_requested()) break;
     const std::size_t k = seq % bank.frames.size();
     header.set_seq(seq);
     header.set_camera_time_ns(client::wall_clock_ns());
     const auto& frame = bank.frames[k];
-    if (pub->publish(header, std::as_bytes(std::span(frame)))) ++sent;
-    else ++dropped;
-    if (truth.is_open()) {
+    const bool ok = o.block_when_full ? pub->publish_waiting(header, frame, keep_going)
+                                      : pub->publish(header, frame);
+    if (!ok) {
+      if (!stop_requested()) ++dropped;
+      continue;
+    }
+    ++sent;
+    if (truth.is_open()) {  // only frames that left: what a test can expect to see measured
       const auto& t = bank.truth[k];
       for (std::size_t i = 0; i < t.dx_px.size(); ++i)
         truth << fmt::format("{},{},{:.6f},{:.6f}\n", seq, i, t.dx_px[i], t.dy_px[i]);
     }
   }
   const double elapsed = std::chrono::duration<double>(clock::now() - start).count();
-  std::cout << fmt::format("sent {} frames in {:.2f} s ({:.1f} Hz); {} dropped because a subscriber's queue was full\n", sent, elapsed,
-                           elapsed > 0 ? sent / elapsed : 0.0, dropped);
+  std::cout << fmt::format("sent {} frames in {:.2f} s ({:.1f} Hz); {} dropped because a subscriber's queue was "
+                           "full{}\n",
+                           sent, elapsed, elapsed > 0 ? sent / elapsed : 0.0, dropped,
+                           stop_requested() ? "; stopped by a signal" : "");
 }
 
 }  // namespace
@@ -133,33 +195,52 @@ void run_sim(const SimOptions& o) {
 void add_sim_command(CLI::App& app) {
   auto o = std::make_shared<SimOptions>();
   auto* cmd = app.add_subcommand("sim", "Simulate a lenslet camera: publish frames of spots with known offsets");
-  cmd->add_option("--frames-out", o->frames_out, "Endpoint to bind and publish frames on")->capture_default_str();
-  cmd->add_option("--subapertures-x", o->subapertures_x, "Subapertures across")->capture_default_str()->check(CLI::Range(1, 1024));
-  cmd->add_option("--subapertures-y", o->subapertures_y, "Subapertures down")->capture_default_str()->check(CLI::Range(1, 1024));
-  cmd->add_option("--pitch-px", o->pitch_px, "Subaperture box side, px (the camera is subapertures x pitch)")
-      ->capture_default_str()->check(CLI::Range(2, 256));
-  cmd->add_option("--rate-hz", o->rate_hz, "Frame rate")->capture_default_str()->check(CLI::Range(0.1, 100000.0));
+  cmd->add_option("--config", o->config,
+                  "Take the camera (size, pixel type), the lenslet grid and the frames endpoint from this "
+                  "slopecastd config file; options given with it must not repeat them")
+      ->check(CLI::ExistingFile);
+  auto* frames_out = cmd->add_option("--frames-out", o->frames_out, "Endpoint to bind and publish frames on")->capture_default_str();
+  auto* sx = cmd->add_option("--subapertures-x", o->subapertures_x, "Subapertures across")->capture_default_str()->check(CLI::Range(1, 4096));
+  auto* sy = cmd->add_option("--subapertures-y", o->subapertures_y, "Subapertures down")->capture_default_str()->check(CLI::Range(1, 4096));
+  auto* pitch = cmd->add_option("--pitch-px", o->pitch_px, "Subaperture box side, px")->capture_default_str()->check(CLI::Range(2, 1024));
+  auto* ox = cmd->add_option("--origin-x-px", o->origin_x_px, "Column of the first box's first pixel")->capture_default_str()->check(CLI::Range(0, 16384));
+  auto* oy = cmd->add_option("--origin-y-px", o->origin_y_px, "Row of the first box's first pixel")->capture_default_str()->check(CLI::Range(0, 16384));
+  auto* w = cmd->add_option("--width-px", o->width_px, "Camera width, px (default: origin + subapertures x pitch)")->check(CLI::Range(1, 16384));
+  auto* h = cmd->add_option("--height-px", o->height_px, "Camera height, px (default: origin + subapertures x pitch)")->check(CLI::Range(1, 16384));
+  auto* type = cmd->add_option("--pixel-type", o->pixel_type, "Pixel type: u8, u16, u32 or f32")->capture_default_str();
+  for (auto* opt : {frames_out, sx, sy, pitch, ox, oy, w, h, type}) opt->excludes(cmd->get_option("--config"));
+  cmd->add_option("--rate-hz", o->rate_hz, "Frame rate")->capture_default_str()->check(CLI::Range(0.01, 100000.0));
   cmd->add_option("--frames", o->frames, "Frames to send (0: until Ctrl-C)")->capture_default_str();
   cmd->add_option("--distinct-frames", o->distinct_frames,
                   "Distinct frames rendered up front and cycled (seq k shows frame k mod this)")
       ->capture_default_str()->check(CLI::Range(1, 100000));
   cmd->add_option("--spot-sigma-px", o->spot_sigma_px, "Spot rms width, px")->capture_default_str()->check(CLI::PositiveNumber);
   cmd->add_option("--photons", o->photons, "Expected photo-electrons per spot")->capture_default_str()->check(CLI::NonNegativeNumber);
+  cmd->add_option("--background-e-per-px", o->background_e,
+                  "Diffuse background light on every pixel (sky, scattered light), expected photo-electrons")
+      ->capture_default_str()->check(CLI::NonNegativeNumber);
   cmd->add_option("--max-offset-px", o->max_offset_px, "Offsets drawn uniformly from [-max, max] px, per axis")
       ->capture_default_str()->check(CLI::NonNegativeNumber);
   cmd->add_option("--read-noise-e", o->read_noise_e, "Read noise, e- rms per pixel")->capture_default_str()->check(CLI::NonNegativeNumber);
   cmd->add_option("--bias-adu", o->bias_adu, "Bias level, ADU")->capture_default_str()->check(CLI::NonNegativeNumber);
   cmd->add_option("--gain-e-per-adu", o->gain_e_per_adu, "Detector gain, e- per ADU")->capture_default_str()->check(CLI::PositiveNumber);
+  cmd->add_option("--full-scale-adu", o->full_scale_adu,
+                  "Saturation level, ADU (default: the pixel type's full scale; e.g. 4095 for a 12-bit camera)")
+      ->check(CLI::NonNegativeNumber);
   cmd->add_option("--seed", o->seed, "Random seed (same seed, same frames)")->capture_default_str();
   cmd->add_option("--truth-csv", o->truth_csv,
-                  "Write the true offsets of every published frame here (frame_seq,subaperture,true_dx_px,true_dy_px)");
+                  "Write the true offsets of every frame sent (frame_seq,subaperture,true_dx_px,true_dy_px)");
   cmd->add_option("--write-dark", o->write_dark,
-                  "Instead of publishing, write the mean of --dark-frames dark exposures to this FITS file and exit");
+                  "Instead of publishing, write the mean of --dark-frames dark exposures (no light) of the "
+                  "camera's size to this FITS file and exit");
   cmd->add_option("--dark-frames", o->dark_frames, "Dark exposures averaged by --write-dark")
       ->capture_default_str()->check(CLI::Range(1, 100000));
   cmd->add_option("--wait-subscriber-s", o->wait_subscriber_s,
                   "Wait up to this long for a subscriber before the first frame (0: do not wait)")
       ->capture_default_str()->check(CLI::NonNegativeNumber);
+  cmd->add_flag("--block-when-full", o->block_when_full,
+                "When a subscriber's queue is full, wait for room instead of dropping the frame (lossless: "
+                "the rate then follows the slowest subscriber)");
   cmd->add_option("--source-id", o->source_id, "Text put in every frame header's source_id")->capture_default_str();
   cmd->callback([o] { run_sim(*o); });
 }

@@ -3,6 +3,7 @@
 #include <memory>
 
 #include <fmt/format.h>
+#include <google/protobuf/util/json_util.h>
 #include <zmq.hpp>
 
 #include "client/cli/commands.h"
@@ -12,37 +13,53 @@ namespace slopecast::cli {
 
 namespace {
 
+constexpr const char* kCmd = "status";
+
 struct StatusOptions {
-  std::string control = "tcp://127.0.0.1:6112";
+  std::string config;
+  std::string control = io::kDefaultControlEndpoint;
   double timeout_s = 2.0;
   double wait_s = 0.0;
+  bool json = false;
 };
 
 void print_status(const v1::StatusReply& s) {
   std::cout << fmt::format(
       "slopecastd {}  up {:.1f} s\n"
-      "  sensor        {} x {} px, {} x {} subapertures of {} px, dark {}\n"
+      "  sensor        {} x {} px {}, {} x {} subapertures of {} px, dark {}\n"
+      "  stream        {}  last frame {} ago  from '{}'\n"
       "  frames        received {}  processed {}  rejected {}  missed {}  rate {:.1f} Hz\n"
-      "  measurements  published {}  subscribers {}\n"
-      "  last seq      {}\n"
+      "  seq           last {}  repeated {}  restarts {}  connection drops {}\n"
+      "  measurements  published {}  subscriptions {}\n"
       "  latency       median {:.1f} us  p99 {:.1f} us  max {:.1f} us  (received -> published, last {} frames)\n",
-      s.version(), s.uptime_s(), s.width_px(), s.height_px(), s.n_subap_x(), s.n_subap_y(), s.pitch_px(),
-      s.dark_loaded() ? "loaded" : "none", s.frames_received(), s.frames_processed(), s.frames_rejected(),
-      s.frames_missed(), s.frame_rate_hz(), s.measurements_published(), s.measurement_subscribers(),
-      s.has_last_seq() ? std::to_string(s.last_seq()) : std::string("-"), s.latency_median_us(),
+      s.version(), s.uptime_s(), s.width_px(), s.height_px(), s.pixel_type(), s.n_subap_x(), s.n_subap_y(),
+      s.pitch_px(), s.dark_loaded() ? "loaded" : "none", s.stream_state_name(),
+      s.has_last_seq() ? fmt::format("{:.2f} s", s.last_frame_age_s()) : std::string("-"), s.last_source_id(),
+      s.frames_received(), s.frames_processed(), s.frames_rejected(), s.frames_missed(), s.frame_rate_hz(),
+      s.has_last_seq() ? std::to_string(s.last_seq()) : std::string("-"), s.frames_repeated(), s.seq_restarts(),
+      s.frame_connection_drops(), s.measurements_published(), s.measurement_subscribers(), s.latency_median_us(),
       s.latency_p99_us(), s.latency_max_us(), s.latency_window_frames());
   std::cout << "  rejected by reason:";
   for (const auto& r : s.rejected()) std::cout << fmt::format(" {}={}", r.reason_name(), r.count());
   std::cout << "\n";
+  for (const auto& r : s.rejected())
+    if (r.count() > 0) std::cout << fmt::format("    last {}: {}\n", r.reason_name(), r.last_detail());
 }
 
-void run_status(const StatusOptions& o) {
+void run_status(StatusOptions o) {
+  if (!o.config.empty()) {
+    auto c = read_daemon_config(kCmd, o.config);
+    if (!c) return;
+    o.control = c->endpoints.control;
+  }
+  if (!endpoint_ok(kCmd, "--control", o.control)) return;
   zmq::context_t ctx(1);
   client::ControlClient control(ctx, o.control);
   const auto timeout = std::chrono::milliseconds(static_cast<long>(o.timeout_s * 1000));
   auto result = o.wait_s > 0 ? control.wait_ready(std::chrono::milliseconds(static_cast<long>(o.wait_s * 1000)))
                              : control.status(timeout);
   if (auto* err = std::get_if<std::string>(&result)) {
+    if (stop_requested()) return;  // main turns the stop into 128 + signal
     std::cerr << "slopecast status: " << *err << "\n";
     exit_code() = 1;
     return;
@@ -53,6 +70,20 @@ void run_status(const StatusOptions& o) {
     exit_code() = 1;
     return;
   }
+  if (o.json) {
+    std::string text;
+    google::protobuf::util::JsonPrintOptions options;
+    options.add_whitespace = true;
+    options.always_print_primitive_fields = true;
+    options.preserve_proto_field_names = true;
+    if (!google::protobuf::util::MessageToJsonString(reply.status(), &text, options).ok()) {
+      std::cerr << "slopecast status: the reply could not be written as JSON\n";
+      exit_code() = 1;
+      return;
+    }
+    std::cout << text;
+    return;
+  }
   print_status(reply.status());
 }
 
@@ -61,7 +92,11 @@ void run_status(const StatusOptions& o) {
 void add_status_command(CLI::App& app) {
   auto opts = std::make_shared<StatusOptions>();
   auto* cmd = app.add_subcommand("status", "Ask slopecastd for its counters, rate and latency");
-  cmd->add_option("--control", opts->control, "Daemon control endpoint")->capture_default_str();
+  auto* config = cmd->add_option("--config", opts->config, "Take the control endpoint from this slopecastd config file")
+                    ->check(CLI::ExistingFile);
+  cmd->add_option("--control", opts->control, "Daemon control endpoint")->capture_default_str()->excludes(config);
+  cmd->add_flag("--json", opts->json,
+                "Print the reply as JSON (protobuf's JSON mapping, field names as in control.proto) for scripts");
   cmd->add_option("--timeout-s", opts->timeout_s, "Seconds to wait for the reply")
       ->capture_default_str()->check(CLI::PositiveNumber);
   cmd->add_option("--wait-s", opts->wait_s,

@@ -14,8 +14,11 @@ namespace slopecast::cli {
 
 namespace {
 
+constexpr const char* kCmd = "watch";
+
 struct WatchOptions {
-  std::string measurements = "tcp://127.0.0.1:6111";
+  std::string config;
+  std::string measurements = io::kDefaultMeasurementsEndpoint;
   double duration_s = 0.0;   // 0: until interrupted or count reached
   std::uint64_t count = 0;   // 0: no limit
   double interval_s = 1.0;
@@ -33,7 +36,13 @@ void print_summary(const client::TallySummary& s) {
       s.daemon_p99_us, s.slope_rms_x_px, s.slope_rms_y_px, s.mean_valid, s.subapertures);
 }
 
-void run_watch(const WatchOptions& o) {
+void run_watch(WatchOptions o) {
+  if (!o.config.empty()) {
+    auto c = read_daemon_config(kCmd, o.config);
+    if (!c) return;
+    o.measurements = c->endpoints.measurements_out;
+  }
+  if (!endpoint_ok(kCmd, "--measurements", o.measurements)) return;
   zmq::context_t ctx(1);
   client::MeasurementSubscriber sub(ctx, o.measurements);
   client::MeasurementTally total, interval;
@@ -64,9 +73,10 @@ void run_watch(const WatchOptions& o) {
     total.add(*m, t);
     interval.add(*m, t);
   }
+  if (stop_requested()) std::cout << "stopped by a signal\n";
   print_summary(total.summary());
   if (sub.malformed() > 0) std::cout << "  malformed messages skipped: " << sub.malformed() << "\n";
-  if (total.count() == 0 && exit_code() == 0) {
+  if (total.count() == 0 && exit_code() == 0 && !stop_requested()) {
     std::cerr << "slopecast watch: received no measurement\n";
     exit_code() = 1;
   }
@@ -77,7 +87,12 @@ void run_watch(const WatchOptions& o) {
 void add_watch_command(CLI::App& app) {
   auto opts = std::make_shared<WatchOptions>();
   auto* cmd = app.add_subcommand("watch", "Print a live view of slopecastd's measurements and a summary");
-  cmd->add_option("--measurements", opts->measurements, "Daemon measurement endpoint")->capture_default_str();
+  auto* config = cmd->add_option("--config", opts->config,
+                                 "Take the measurement endpoint from this slopecastd config file")
+                    ->check(CLI::ExistingFile);
+  cmd->add_option("--measurements", opts->measurements, "Daemon measurement endpoint")
+      ->capture_default_str()
+      ->excludes(config);
   cmd->add_option("--duration-s", opts->duration_s, "Stop after this many seconds (0: no limit)")
       ->check(CLI::NonNegativeNumber);
   cmd->add_option("--count", opts->count, "Stop after this many measurements (0: no limit)");

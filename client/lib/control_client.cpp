@@ -2,6 +2,8 @@
 
 #include <algorithm>
 
+#include "client/lib/interruptible_poll.h"
+
 namespace slopecast::client {
 
 ControlClient::ControlClient(zmq::context_t& ctx, std::string endpoint)
@@ -24,7 +26,10 @@ std::variant<v1::ControlReply, std::string> ControlClient::call(const v1::Contro
     return std::string("could not send the request to ") + endpoint_;
   }
   zmq::pollitem_t item{socket_->handle(), 0, ZMQ_POLLIN, 0};
-  zmq::poll(&item, 1, timeout);
+  if (interruptible_poll(&item, 1, timeout) == PollResult::kInterrupted) {
+    reset();
+    return std::string(kInterrupted);
+  }
   zmq::message_t m;
   if (!(item.revents & ZMQ_POLLIN) || !socket_->recv(m, zmq::recv_flags::dontwait)) {
     reset();
@@ -50,6 +55,7 @@ std::variant<v1::ControlReply, std::string> ControlClient::wait_ready(std::chron
         deadline - std::chrono::steady_clock::now());
     auto r = status(std::clamp(left, std::chrono::milliseconds(1), std::chrono::milliseconds(200)));
     if (std::holds_alternative<v1::ControlReply>(r) || left.count() <= 200) return r;
+    if (std::get<std::string>(r) == kInterrupted) return r;
   }
 }
 

@@ -12,6 +12,9 @@
 
 namespace slopecast::client {
 
+// The error call() returns when a signal interrupted the wait.
+inline constexpr const char* kInterrupted = "interrupted by a signal";
+
 class ControlClient {
  public:
   ControlClient(zmq::context_t& ctx, std::string endpoint);
@@ -24,8 +27,9 @@ class ControlClient {
   // call() with a status request.
   std::variant<v1::ControlReply, std::string> status(std::chrono::milliseconds timeout);
 
-  // Polls status until the daemon answers or total elapses: the readiness
-  // check for scripts and tests. Returns the first reply, or why not.
+  // Polls status until the daemon answers, total elapses, or a signal
+  // arrives: the readiness check for scripts and tests. Returns the first
+  // reply, or why not.
   std::variant<v1::ControlReply, std::string> wait_ready(std::chrono::milliseconds total);
 
  private:

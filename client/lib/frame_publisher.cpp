@@ -1,5 +1,7 @@
 #include "client/lib/frame_publisher.h"
 
+#include "client/lib/interruptible_poll.h"
+
 namespace slopecast::client {
 
 FramePublisher::FramePublisher(zmq::context_t& ctx, const std::string& endpoint, int high_water_mark)
@@ -21,7 +23,7 @@ bool FramePublisher::wait_for_subscriber(std::chrono::milliseconds timeout) {
     const auto left = std::chrono::duration_cast<std::chrono::milliseconds>(
         deadline - std::chrono::steady_clock::now());
     if (left.count() <= 0) return false;
-    zmq::poll(&item, 1, left);
+    if (interruptible_poll(&item, 1, left) == PollResult::kInterrupted) return false;
     zmq::message_t m;
     while (socket_.recv(m, zmq::recv_flags::dontwait))
       if (m.size() >= 1 && static_cast<const unsigned char*>(m.data())[0] == 1) have_subscriber_ = true;
@@ -35,6 +37,17 @@ bool FramePublisher::publish(const v1::FrameHeader& header, std::span<const std:
     return false;
   return socket_.send(zmq::const_buffer(pixels.data(), pixels.size()), zmq::send_flags::dontwait)
       .has_value();
+}
+
+bool FramePublisher::publish_waiting(const v1::FrameHeader& header, std::span<const std::byte> pixels,
+                                     const std::function<bool()>& keep_waiting) {
+  zmq::pollitem_t item{socket_.handle(), 0, ZMQ_POLLOUT, 0};
+  for (;;) {
+    if (publish(header, pixels)) return true;
+    if (!keep_waiting()) return false;
+    // Room appears as the subscriber reads; a signal ends the wait early.
+    (void)interruptible_poll(&item, 1, std::chrono::milliseconds(100));
+  }
 }
 
 bool FramePublisher::publish_parts(std::span<const std::string> parts) {

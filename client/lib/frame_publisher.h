@@ -9,6 +9,7 @@
 
 #include <chrono>
 #include <cstddef>
+#include <functional>
 #include <span>
 #include <string>
 
@@ -24,13 +25,24 @@ class FramePublisher {
   // the oldest are dropped. Throws zmq::error_t if the bind fails.
   FramePublisher(zmq::context_t& ctx, const std::string& endpoint, int high_water_mark = 16);
 
-  // True once at least one subscription has arrived, false on timeout.
+  // True once at least one subscription has arrived, false on timeout or
+  // when a signal interrupts the wait.
   [[nodiscard]] bool wait_for_subscriber(std::chrono::milliseconds timeout);
 
   // Sends header + pixels as one two-part message. Never blocks: returns
   // false if a subscriber's queue is full (the frame is dropped). With no
   // subscriber at all ZeroMQ discards the frame and this returns true.
   bool publish(const v1::FrameHeader& header, std::span<const std::byte> pixels);
+
+  // Sends header + pixels, waiting for room in full subscriber queues
+  // instead of dropping: nothing is lost between here and a subscriber that
+  // keeps reading (ZeroMQ applies back-pressure through the connection).
+  // Returns false only if keep_waiting() turns false while waiting.
+  bool publish_waiting(const v1::FrameHeader& header, std::span<const std::byte> pixels,
+                       const std::function<bool()>& keep_waiting);
+
+  // True once wait_for_subscriber() (or a later poll) has seen a subscription.
+  bool has_subscriber() const { return have_subscriber_; }
 
   // Sends arbitrary parts as one message (tests use it for malformed frames).
   bool publish_parts(std::span<const std::string> parts);

@@ -1,5 +1,7 @@
 #include "client/lib/measurement_subscriber.h"
 
+#include "client/lib/interruptible_poll.h"
+
 namespace slopecast::client {
 
 MeasurementSubscriber::MeasurementSubscriber(zmq::context_t& ctx, const std::string& endpoint)
@@ -31,7 +33,7 @@ std::optional<v1::Measurement> MeasurementSubscriber::receive(std::chrono::milli
     const auto left = std::chrono::duration_cast<std::chrono::milliseconds>(
         deadline - std::chrono::steady_clock::now());
     if (left.count() <= 0) return std::nullopt;
-    zmq::poll(&item, 1, left);
+    if (interruptible_poll(&item, 1, left) == PollResult::kInterrupted) return std::nullopt;
   }
 }
 

@@ -16,7 +16,8 @@ class MeasurementSubscriber {
   // Connects to the daemon's measurements_out endpoint and subscribes to all.
   MeasurementSubscriber(zmq::context_t& ctx, const std::string& endpoint);
 
-  // Next measurement, or nullopt when none arrives within timeout. A message
+  // Next measurement, or nullopt when none arrives within timeout or a
+  // signal interrupts the wait. A message
   // that does not parse is counted in malformed() and skipped.
   [[nodiscard]] std::optional<v1::Measurement> receive(std::chrono::milliseconds timeout);
 

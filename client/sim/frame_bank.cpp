@@ -2,33 +2,37 @@
 
 namespace slopecast::sim {
 
-FrameBank make_frame_bank(const SpotFieldSettings& field, const DetectorModel& detector, int width,
-                          int height, int count, std::uint64_t seed) {
+FrameBank make_frame_bank(const SpotFieldSettings& field, const DetectorModel& detector,
+                          const core::CameraSpec& camera, double background_e_per_px, int count,
+                          std::uint64_t seed, const KeepGoing& keep_going) {
   std::mt19937_64 rng(seed);
   FrameBank bank;
-  bank.width = width;
-  bank.height = height;
+  bank.camera = camera;
   bank.frames.reserve(count);
   bank.truth.reserve(count);
-  for (int k = 0; k < count; ++k) {
+  const bool integer = camera.format != core::PixelFormat::kF32;
+  std::vector<double> adu;
+  for (int k = 0; k < count && keep_going(); ++k) {
     SpotOffsets offsets = draw_offsets(field, rng);
-    const std::vector<double> expected = render_spot_field(field, offsets, width, height);
-    std::vector<std::uint16_t> frame(expected.size());
-    expose(expected, detector, rng, frame);
-    bank.frames.push_back(std::move(frame));
+    std::vector<double> expected = render_spot_field(field, offsets, camera.width_px, camera.height_px);
+    if (background_e_per_px > 0.0)
+      for (double& v : expected) v += background_e_per_px;
+    adu.resize(expected.size());
+    expose_adu(expected, detector, rng, adu, integer);
+    bank.frames.push_back(encode_pixels(adu, camera.format));
     bank.truth.push_back(std::move(offsets));
   }
   return bank;
 }
 
 std::vector<float> make_mean_dark(const DetectorModel& detector, int width, int height, int n,
-                                  std::uint64_t seed) {
+                                  std::uint64_t seed, const KeepGoing& keep_going) {
   std::mt19937_64 rng(seed);
   const std::vector<double> nothing(static_cast<std::size_t>(width) * height, 0.0);
-  std::vector<double> sum(nothing.size(), 0.0);
-  std::vector<std::uint16_t> frame(nothing.size());
+  std::vector<double> sum(nothing.size(), 0.0), frame(nothing.size());
   for (int k = 0; k < n; ++k) {
-    expose(nothing, detector, rng, frame);
+    if (!keep_going()) return {};
+    expose_adu(nothing, detector, rng, frame);
     for (std::size_t i = 0; i < frame.size(); ++i) sum[i] += frame[i];
   }
   std::vector<float> mean(sum.size());

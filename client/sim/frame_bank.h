@@ -8,29 +8,37 @@
 #pragma once
 
 #include <cstdint>
+#include <functional>
 #include <random>
 #include <vector>
 
 #include "client/sim/detector_model.h"
 #include "client/sim/spot_field.h"
+#include "daemon/core/sensor_geometry.h"
 
 namespace slopecast::sim {
 
 struct FrameBank {
-  int width = 0;
-  int height = 0;
-  std::vector<std::vector<std::uint16_t>> frames;  // row-major u16, width*height each
-  std::vector<SpotOffsets> truth;                  // offsets rendered in frames[i]
+  core::CameraSpec camera;
+  std::vector<std::vector<std::byte>> frames;  // row-major pixels of camera.format, tightly packed
+  std::vector<SpotOffsets> truth;              // offsets rendered in frames[i]
 };
 
-// Precondition: validate(field) and validate(detector) are empty; the grid
-// fits in width x height.
-FrameBank make_frame_bank(const SpotFieldSettings& field, const DetectorModel& detector, int width,
-                          int height, int count, std::uint64_t seed);
+// Called between frames; returning false stops the work early (Ctrl-C).
+using KeepGoing = std::function<bool()>;
 
-// The mean of n dark exposures (no spots): what a bench's dark acquisition
-// would produce, in ADU, row-major.
+// Spots plus background_e_per_px of diffuse light on every pixel (sky,
+// scattered light), exposed through the detector. Stops early, returning
+// the frames made so far, when keep_going() turns false.
+// Precondition: validate(field) and validate(detector) are empty; the grid
+// fits the camera.
+FrameBank make_frame_bank(const SpotFieldSettings& field, const DetectorModel& detector,
+                          const core::CameraSpec& camera, double background_e_per_px, int count,
+                          std::uint64_t seed, const KeepGoing& keep_going = [] { return true; });
+
+// The mean of n dark exposures (no light at all): what a bench's dark
+// acquisition would produce, in ADU, row-major. Empty if stopped early.
 std::vector<float> make_mean_dark(const DetectorModel& detector, int width, int height, int n,
-                                  std::uint64_t seed);
+                                  std::uint64_t seed, const KeepGoing& keep_going = [] { return true; });
 
 }  // namespace slopecast::sim

@@ -1,7 +1,11 @@
 #include "daemon/app/daemon.h"
 
+#include <signal.h>
 #include <sys/signalfd.h>
 #include <unistd.h>
+#include <zmq.h>
+
+#include <cstring>
 
 #include <spdlog/spdlog.h>
 
@@ -23,12 +27,15 @@ std::uint64_t wall_ns() {
                                         .count());
 }
 
-// True for tcp:// endpoints that other hosts could reach.
-bool reachable_off_host(const std::string& endpoint) {
-  if (endpoint.rfind("tcp://", 0) != 0) return false;
-  for (const char* local : {"tcp://127.", "tcp://localhost:", "tcp://[::1]:"})
-    if (endpoint.rfind(local, 0) == 0) return false;
-  return true;
+constexpr const char* kFramesMonitorEndpoint = "inproc://slopecastd-frames-monitor";
+
+const char* stream_state_name(v1::StreamState s) {
+  switch (s) {
+    case v1::STREAM_STATE_WAITING: return "waiting";
+    case v1::STREAM_STATE_OK: return "ok";
+    case v1::STREAM_STATE_STALE: return "stale";
+    default: return "?";
+  }
 }
 
 float micros(std::chrono::steady_clock::duration d) {
@@ -45,18 +52,19 @@ Daemon::Daemon(io::DaemonConfig config)
     : config_(std::move(config)),
       pipeline_(config_.pipeline),
       measurement_(pipeline_.make_measurement()),
-      stats_(config_.latency_window_frames),
+      stats_(config_.latency_window_frames, config_.max_seq_jump),
       started_(std::chrono::steady_clock::now()),
       ctx_(1),
       frames_(ctx_, zmq::socket_type::sub),
       measurements_(ctx_, zmq::socket_type::xpub),
-      control_(ctx_, zmq::socket_type::rep) {
+      control_(ctx_, zmq::socket_type::rep),
+      frames_monitor_(ctx_, zmq::socket_type::pair) {
   for (zmq::socket_t* s : {&frames_, &measurements_, &control_}) s->set(zmq::sockopt::linger, 0);
   // Report every subscribe and unsubscribe, so we can count subscribers.
   measurements_.set(zmq::sockopt::xpub_verboser, 1);
   measurements_.set(zmq::sockopt::sndhwm, config_.measurement_queue_depth);
   for (const std::string* e : {&config_.endpoints.measurements_out, &config_.endpoints.control})
-    if (reachable_off_host(*e))
+    if (io::reachable_off_host(*e))
       spdlog::warn("binding {} is reachable from other hosts, and slopecastd has no access control yet; "
                    "prefer 127.0.0.1 unless the network is trusted",
                    *e);
@@ -66,6 +74,9 @@ Daemon::Daemon(io::DaemonConfig config)
     spdlog::error("cannot bind measurements_out '{}': {}", config_.endpoints.measurements_out, e.what());
     throw;
   }
+  // Socket options take effect for connections made after they are set:
+  // cap control requests before binding.
+  control_.set(zmq::sockopt::maxmsgsize, std::int64_t{1} << 16);
   try {
     control_.bind(config_.endpoints.control);
   } catch (const zmq::error_t& e) {
@@ -73,22 +84,21 @@ Daemon::Daemon(io::DaemonConfig config)
     throw;
   }
   frames_.set(zmq::sockopt::rcvhwm, config_.frame_queue_depth);
-  // A sender that claims a frame far larger than the camera's is broken or
-  // hostile: ZeroMQ drops its connection instead of buffering gigabytes. Row
-  // padding up to 4x the packed width is allowed, plus 1 MiB for headers.
-  const auto& cam = config_.pipeline.camera;
-  const std::int64_t frame_bytes =
-      static_cast<std::int64_t>(cam.width_px) * cam.height_px * core::bytes_per_pixel(cam.format);
-  frames_.set(zmq::sockopt::maxmsgsize, 4 * frame_bytes + (1 << 20));
-  control_.set(zmq::sockopt::maxmsgsize, std::int64_t{1} << 16);
+  // A part larger than this is never buffered: ZeroMQ drops the connection
+  // instead, which the monitor below turns into a count and a reconnect.
+  frames_.set(zmq::sockopt::maxmsgsize, config_.max_frame_bytes);
   frames_.set(zmq::sockopt::subscribe, "");
+  if (zmq_socket_monitor(frames_.handle(), kFramesMonitorEndpoint, ZMQ_EVENT_DISCONNECTED) != 0)
+    throw zmq::error_t();
+  frames_monitor_.set(zmq::sockopt::linger, 0);
+  frames_monitor_.connect(kFramesMonitorEndpoint);
   frames_.connect(config_.endpoints.frames_in);
   // Pre-size the outgoing message's repeated fields so the first frame does
   // not pay for their allocation either.
   io::encode_measurement(measurement_, io::MeasurementStamp{}, out_msg_);
 }
 
-Daemon::~Daemon() = default;
+Daemon::~Daemon() { zmq_socket_monitor(frames_.handle(), nullptr, 0); }
 
 int Daemon::run(int signal_fd) {
   const auto& g = config_.pipeline.grid;
@@ -99,10 +109,12 @@ int Daemon::run(int signal_fd) {
                config_.pipeline.camera.height_px, core::pixel_format_name(config_.pipeline.camera.format),
                g.n_subap_x, g.n_subap_y, g.pitch_px, core::centroider_name(config_.pipeline.centroider),
                config_.dark_frame.empty() ? std::string("none") : config_.dark_frame.string());
+  for (const auto& w : config_.warnings) spdlog::warn("{}", w);
   zmq::pollitem_t items[] = {
       {frames_.handle(), 0, ZMQ_POLLIN, 0},
       {control_.handle(), 0, ZMQ_POLLIN, 0},
       {measurements_.handle(), 0, ZMQ_POLLIN, 0},
+      {frames_monitor_.handle(), 0, ZMQ_POLLIN, 0},
       {nullptr, signal_fd, ZMQ_POLLIN, 0},
   };
   auto next_tick = std::chrono::steady_clock::now() + kTickPeriod;
@@ -116,17 +128,17 @@ int Daemon::run(int signal_fd) {
     }
     const auto wait = std::chrono::duration_cast<std::chrono::milliseconds>(next_tick - now);
     try {
-      zmq::poll(items, 4, std::max(wait, std::chrono::milliseconds(1)));
+      zmq::poll(items, 5, std::max(wait, std::chrono::milliseconds(1)));
     } catch (const zmq::error_t& e) {
       if (e.num() == EINTR) continue;
       throw;
     }
-    if (items[3].revents & ZMQ_POLLIN) {
-      signalfd_siginfo info{};
-      if (read(signal_fd, &info, sizeof info) == sizeof info)
-        spdlog::info("signal {} received, stopping", info.ssi_signo);
-      break;
+    if (items[4].revents & ZMQ_POLLIN) {
+      bool stop = false;
+      note_signal(signal_fd, stop);
+      if (stop) break;
     }
+    if (items[3].revents & ZMQ_POLLIN) handle_monitor();
     if (items[0].revents & ZMQ_POLLIN) handle_frames();
     if (items[1].revents & ZMQ_POLLIN) handle_control();
     if (items[2].revents & ZMQ_POLLIN) handle_subscriptions();
@@ -138,6 +150,43 @@ int Daemon::run(int signal_fd) {
                stats_.frames_received, stats_.frames_processed, stats_.rejected_total(),
                stats_.frames_missed, stats_.measurements_published, lat.median_us, lat.p99_us);
   return 0;
+}
+
+void Daemon::note_signal(int signal_fd, bool& stop) {
+  signalfd_siginfo info{};
+  if (read(signal_fd, &info, sizeof info) != sizeof info) return;
+  if (info.ssi_signo == SIGHUP) {
+    spdlog::warn("SIGHUP received and ignored: slopecastd does not reload its config; restart it to apply "
+                 "a change (SIGINT or SIGTERM stop it)");
+    return;
+  }
+  spdlog::info("signal {} received, stopping", info.ssi_signo);
+  stop = true;
+}
+
+void Daemon::handle_monitor() {
+  // Each event is two parts: 6 bytes (uint16 event, uint32 value), then the endpoint.
+  zmq::message_t event, endpoint;
+  while (frames_monitor_.recv(event, zmq::recv_flags::dontwait)) {
+    if (event.more()) (void)frames_monitor_.recv(endpoint);
+    std::uint16_t id = 0;
+    if (event.size() >= 2) std::memcpy(&id, event.data(), 2);
+    if (id != ZMQ_EVENT_DISCONNECTED) continue;
+    ++stats_.frame_connection_drops;
+    spdlog::warn("the frames connection to {} was dropped (drop {}): a frame message part over "
+                 "max_frame_bytes = {} bytes makes ZeroMQ close it, and so does a camera that stops; "
+                 "reconnecting",
+                 config_.endpoints.frames_in, stats_.frame_connection_drops, config_.max_frame_bytes);
+    // After a protocol error (an over-size part) libzmq does not reconnect by
+    // itself; a fresh connect does. Disconnect first so that a session that
+    // is still retrying is not doubled (which would deliver frames twice).
+    try {
+      frames_.disconnect(config_.endpoints.frames_in);
+    } catch (const zmq::error_t&) {
+      // ENOENT: the session is already gone, as after a protocol error.
+    }
+    frames_.connect(config_.endpoints.frames_in);
+  }
 }
 
 void Daemon::handle_frames() {
@@ -160,13 +209,42 @@ void Daemon::handle_frame(zmq::message_t& header, zmq::message_t* payload, bool 
   const auto t_received = std::chrono::steady_clock::now();
   const std::uint64_t received_ns = wall_ns();
   ++stats_.frames_received;
-  if (!payload || extra_parts) return reject(core::FrameReject::kPartCount);
+  core::RejectedFrame seen;
+  seen.parts = payload ? (extra_parts ? 3 : 2) : 1;
+  seen.header_bytes = header.size();
+  seen.payload_bytes = payload ? payload->size() : 0;
+  if (!payload || extra_parts) return reject(core::FrameReject::kPartCount, seen);
   const auto facts = io::decode_frame_header(bytes_of(header), header_scratch_);
-  if (!facts) return reject(core::FrameReject::kBadHeader);
+  if (!facts) return reject(core::FrameReject::kBadHeader, seen);
   const core::FrameCheckResult checked =
       core::check_frame(*facts, bytes_of(*payload), config_.pipeline.camera);
-  if (!checked.image) return reject(checked.reject);
-  stats_.note_seq(header_scratch_.seq());
+  if (!checked.image) {
+    seen.facts = *facts;
+    return reject(checked.reject, seen);
+  }
+  const std::uint64_t previous_seq = stats_.last_seq;
+  const SeqStep step = stats_.note_seq(header_scratch_.seq());
+  if (step == SeqStep::kBackwards || step == SeqStep::kJump) {
+    restart_from_ = previous_seq;
+    restart_to_ = header_scratch_.seq();
+    if (stats_.seq_restarts == 1) {
+      spdlog::warn("frame seq went from {} to {}: taken as a camera restart (or a corrupt header), not as "
+                   "missed frames (further ones are summarised once per second)",
+                   restart_from_, restart_to_);
+      restarts_logged_ = 1;
+    }
+  } else if (step == SeqStep::kRepeat && stats_.frames_repeated == 1) {
+    spdlog::warn("frame seq {} arrived twice: counted as repeated (duplicate frames from the camera?)",
+                 header_scratch_.seq());
+    repeats_logged_ = 1;
+  }
+  if (stale_) {
+    spdlog::info("frames resumed after {:.1f} s", std::chrono::duration<double>(t_received - last_frame_).count());
+    stale_ = false;
+  }
+  last_frame_ = t_received;
+  // source_id rarely changes: compare, and copy (allocating) only when it does.
+  if (header_scratch_.source_id() != last_source_id_) last_source_id_ = header_scratch_.source_id();
   const auto t_checked = std::chrono::steady_clock::now();
 
   pipeline_.measure(*checked.image, measurement_);
@@ -190,13 +268,14 @@ void Daemon::handle_frame(zmq::message_t& header, zmq::message_t* payload, bool 
   stats_.record_latency_us(micros(std::chrono::steady_clock::now() - t_received));
 }
 
-void Daemon::reject(core::FrameReject reason) {
+void Daemon::reject(core::FrameReject reason, const core::RejectedFrame& frame) {
   stats_.count_reject(reason);
+  last_rejected_[static_cast<std::size_t>(reason)] = frame;
   // First occurrence of each reason is logged at once; later ones are summed
   // up by tick(), at most once per second per reason.
   if (stats_.rejected(reason) == 1) {
-    spdlog::warn("rejected a frame: {} (further rejections are summarised once per second)",
-                 core::frame_reject_name(reason));
+    spdlog::warn("rejected a frame: {}: {} (further rejections are summarised once per second)",
+                 core::frame_reject_name(reason), core::describe_reject(reason, frame, config_.pipeline.camera));
     rejects_logged_[static_cast<std::size_t>(reason)] = 1;
   }
 }
@@ -207,10 +286,28 @@ void Daemon::tick(double period_s) {
     auto& logged = rejects_logged_[static_cast<std::size_t>(r)];
     const std::uint64_t total = stats_.rejected(r);
     if (total > logged) {
-      spdlog::warn("rejected {} more frame(s): {} ({} in total)", total - logged,
-                   core::frame_reject_name(r), total);
+      spdlog::warn("rejected {} more frame(s): {} ({} in total); the last: {}", total - logged,
+                   core::frame_reject_name(r), total,
+                   core::describe_reject(r, last_rejected_[static_cast<std::size_t>(r)], config_.pipeline.camera));
       logged = total;
     }
+  }
+  if (stats_.seq_restarts > restarts_logged_) {
+    spdlog::warn("{} more seq restart(s) ({} in total); the last went from {} to {}",
+                 stats_.seq_restarts - restarts_logged_, stats_.seq_restarts, restart_from_, restart_to_);
+    restarts_logged_ = stats_.seq_restarts;
+  }
+  if (stats_.frames_repeated > repeats_logged_) {
+    spdlog::warn("{} more repeated seq(s) ({} in total)", stats_.frames_repeated - repeats_logged_,
+                 stats_.frames_repeated);
+    repeats_logged_ = stats_.frames_repeated;
+  }
+  const auto now = std::chrono::steady_clock::now();
+  if (stats_.has_last_seq && !stale_ &&
+      now - last_frame_ >= std::chrono::duration<double>(config_.stale_after_s)) {
+    stale_ = true;
+    spdlog::warn("no frame from {} for {:.1f} s: stream state is now stale", config_.endpoints.frames_in,
+                 std::chrono::duration<double>(now - last_frame_).count());
   }
 }
 
@@ -224,7 +321,8 @@ void Daemon::handle_subscriptions() {
   }
 }
 
-void Daemon::fill_status(v1::StatusReply& s) const {
+void Daemon::fill_status(v1::StatusReply& s) {
+  stats_.rate_since_start(std::chrono::duration<double>(std::chrono::steady_clock::now() - started_).count());
   s.set_version(kVersion);
   s.set_uptime_s(std::chrono::duration<double>(std::chrono::steady_clock::now() - started_).count());
   s.set_frames_received(stats_.frames_received);
@@ -235,12 +333,29 @@ void Daemon::fill_status(v1::StatusReply& s) const {
     c->set_reason(static_cast<v1::RejectReason>(static_cast<int>(r) + 1));
     c->set_reason_name(std::string(core::frame_reject_name(r)));
     c->set_count(stats_.rejected(r));
+    if (stats_.rejected(r) > 0)
+      c->set_last_detail(
+          core::describe_reject(r, last_rejected_[static_cast<std::size_t>(r)], config_.pipeline.camera));
   }
   s.set_measurements_published(stats_.measurements_published);
   s.set_frames_missed(stats_.frames_missed);
   s.set_last_seq(stats_.last_seq);
   s.set_has_last_seq(stats_.has_last_seq);
   s.set_frame_rate_hz(stats_.frame_rate_hz);
+  s.set_frames_repeated(stats_.frames_repeated);
+  s.set_seq_restarts(stats_.seq_restarts);
+  s.set_frame_connection_drops(stats_.frame_connection_drops);
+  const auto now = std::chrono::steady_clock::now();
+  v1::StreamState state = v1::STREAM_STATE_WAITING;
+  if (stats_.has_last_seq) {
+    const double age = std::chrono::duration<double>(now - last_frame_).count();
+    s.set_last_frame_age_s(age);
+    state = age >= config_.stale_after_s ? v1::STREAM_STATE_STALE : v1::STREAM_STATE_OK;
+  }
+  s.set_stream_state(state);
+  s.set_stream_state_name(stream_state_name(state));
+  s.set_stale_after_s(config_.stale_after_s);
+  s.set_last_source_id(last_source_id_);
   const LatencySummary lat = stats_.latency();
   s.set_latency_median_us(lat.median_us);
   s.set_latency_p99_us(lat.p99_us);
@@ -254,6 +369,8 @@ void Daemon::fill_status(v1::StatusReply& s) const {
   s.set_n_subap_y(p.grid.n_subap_y);
   s.set_pitch_px(p.grid.pitch_px);
   s.set_dark_loaded(!p.dark_adu.empty());
+  s.set_pixel_type(std::string(core::pixel_format_name(p.camera.format)));
+  s.set_max_frame_bytes(config_.max_frame_bytes);
 }
 
 void Daemon::handle_control() {

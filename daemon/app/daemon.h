@@ -1,10 +1,12 @@
 // slopecastd's event loop: frames in, measurements out, control answered.
 //
 // DESIGN
-// One thread runs everything, in Daemon::run(): a zmq_poll over four
+// One thread runs everything, in Daemon::run(): a zmq_poll over five
 // sources — the frame SUB socket, the control REP socket, the measurement
-// XPUB socket (subscribe/unsubscribe notices, for the subscriber count) and a
-// signalfd for SIGINT/SIGTERM. Frames are handled in arrival order, each to
+// XPUB socket (subscribe/unsubscribe notices, for the subscriber count), a
+// monitor of the frame socket's connection events, and a signalfd for
+// SIGINT/SIGTERM (stop) and SIGHUP (logged and ignored: the daemon does not
+// reload its config; restart it to apply a change). Frames are handled in arrival order, each to
 // completion (check, measure, publish) before the next is read, so
 // measurements leave in frame order. Housekeeping (rate, rate-limited reject
 // logs) runs in tick() once per kTickPeriod, between frames.
@@ -17,6 +19,15 @@
 // high-water mark (frame_queue_depth) makes ZeroMQ drop the excess; the gaps
 // show up as frames_missed. Measurement publishing never blocks: a slow
 // subscriber loses messages at its own high-water mark.
+//
+// Never deaf: a frame part larger than max_frame_bytes makes ZeroMQ close the
+// camera's connection, and after such a protocol error it does not reconnect
+// by itself (libzmq terminates the session instead of retrying). The monitor
+// reports every disconnect of the frame socket; the daemon then counts it
+// (frame_connection_drops), logs it with the cap, and disconnects and
+// reconnects frames_in, so the stream resumes from the same camera or a
+// restarted one. Frames up to the cap that do not match the camera are
+// received whole and rejected with what arrived against what was expected.
 #pragma once
 
 #include <chrono>
@@ -50,12 +61,14 @@ class Daemon {
 
  private:
   void handle_frames();
+  void handle_monitor();
+  void note_signal(int signal_fd, bool& stop);
   void handle_frame(zmq::message_t& header, zmq::message_t* payload, bool extra_parts);
-  void reject(core::FrameReject reason);
+  void reject(core::FrameReject reason, const core::RejectedFrame& frame);
   void handle_control();
   void handle_subscriptions();
   void tick(double period_s);
-  void fill_status(v1::StatusReply& s) const;
+  void fill_status(v1::StatusReply& s);
 
   io::DaemonConfig config_;
   core::Pipeline pipeline_;
@@ -67,12 +80,23 @@ class Daemon {
 
   // Rate-limited reject logging: at most one line per reason per tick.
   std::array<std::uint64_t, core::kFrameRejectCount> rejects_logged_{};
+  // The last frame rejected for each reason, for logs and status.
+  std::array<core::RejectedFrame, core::kFrameRejectCount> last_rejected_{};
+  // Seq restarts and repeats, logged like rejects.
+  std::uint64_t restarts_logged_ = 0, repeats_logged_ = 0;
+  std::uint64_t restart_from_ = 0, restart_to_ = 0;  // the last restart's seqs
+
+  // The camera's stream: last accepted frame, its sender, stale or not.
+  std::chrono::steady_clock::time_point last_frame_{};
+  bool stale_ = false;
+  std::string last_source_id_;
 
   int subscribers_ = 0;
   zmq::context_t ctx_;
   zmq::socket_t frames_;
   zmq::socket_t measurements_;
   zmq::socket_t control_;
+  zmq::socket_t frames_monitor_;  // PAIR receiving frames_' connection events
   zmq::message_t header_msg_, payload_msg_, extra_msg_;
 };
 

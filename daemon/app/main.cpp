@@ -1,10 +1,11 @@
 // slopecastd: the Shack–Hartmann measurement daemon. Parses the command line,
-// loads and checks the config, blocks SIGINT/SIGTERM into a signalfd (before
+// loads and checks the config, blocks SIGINT/SIGTERM/SIGHUP into a signalfd (before
 // ZeroMQ starts its threads, so they inherit the mask) and runs the loop.
 #include <signal.h>
 #include <sys/signalfd.h>
 #include <unistd.h>
 
+#include <cmath>
 #include <cstdio>
 #include <iostream>
 
@@ -21,10 +22,11 @@ constexpr const char* kConfigHelp = R"(
 Config file (TOML). Unknown tables or keys are errors; relative paths are
 relative to the config file.
 
-  [endpoints]                          all default to loopback
-  frames_in        = "tcp://127.0.0.1:6110"  camera PUB; the daemon connects
-  measurements_out = "tcp://127.0.0.1:6111"  the daemon binds a PUB here
-  control          = "tcp://127.0.0.1:6112"  the daemon binds a REP here
+  [endpoints]                          all default to loopback; tcp://host:port,
+                                       ipc://path or inproc://name
+  frames_in        = "tcp://127.0.0.1:10140"  the camera binds PUB; the daemon connects
+  measurements_out = "tcp://127.0.0.1:10141"  the daemon binds a PUB here
+  control          = "tcp://127.0.0.1:10142"  the daemon binds a REP here
 
   [camera]                             every frame must match exactly
   width_px   = 240                     columns (x)
@@ -40,12 +42,32 @@ relative to the config file.
 
   [calibration]
   dark_frame   = "dark.fits"           optional; 2-D FITS, camera-sized, ADU
-  min_flux_adu = 500.0                 below this a subaperture is invalid (default 0)
+  background   = "border"              "border": per box, the clipped mean of its
+                                       border ring is subtracted (default);
+                                       "none": nothing beyond the dark
+  min_flux_adu = 500.0                 background-subtracted flux below this is
+                                       invalid, ADU (default 0)
+  min_snr      = 5.0                   flux significance below this is invalid
+                                       (default 5; 0 turns it off)
+  saturation_adu = 4095                a raw pixel at or above this saturates its
+                                       box (default: the pixel type's full scale;
+                                       no check for f32)
+  min_valid_fraction = 0.5             fewer valid boxes than this fraction of the
+                                       grid marks the frame few_valid (default 0.5)
 
   [daemon]
   frame_queue_depth     = 4            frames queued before newer ones drop (default 4)
   measurement_queue_depth = 64         measurements queued per subscriber before drops (default 64)
   latency_window_frames = 4096         frames behind the status latency figures
+  stale_after_s         = 1.0          no frame for this long: stream state "stale"
+  max_seq_jump          = 100000       a larger forward seq jump is a restart, not
+                                       missed frames
+  max_frame_bytes       = 67108864     largest frame part accepted; a larger one
+                                       drops the connection, which is counted and
+                                       re-made (default max(4 x frame + 1 MiB, 64 MiB))
+
+Signals: SIGINT and SIGTERM stop the daemon (exit 0); SIGHUP is logged and
+ignored (the config is read only at start).
 )";
 
 }  // namespace
@@ -76,6 +98,7 @@ int main(int argc, char** argv) {
     }
     const auto& c = std::get<io::DaemonConfig>(loaded);
     const auto& p = c.pipeline;
+    const double saturation = p.saturation_adu.value_or(core::full_scale_adu(p.camera.format));
     std::cout << "config OK: " << check_path << "\n"
               << "  camera        " << p.camera.width_px << " x " << p.camera.height_px << " px, "
               << core::pixel_format_name(p.camera.format) << "\n"
@@ -83,10 +106,14 @@ int main(int argc, char** argv) {
               << p.grid.pitch_px << " px, origin (" << p.grid.origin_x_px << ", " << p.grid.origin_y_px
               << ") px\n"
               << "  dark          " << (c.dark_frame.empty() ? "none" : c.dark_frame.string()) << "\n"
-              << "  min flux      " << p.min_flux_adu << " ADU\n"
+              << "  background    " << core::background_mode_name(p.background) << "\n"
+              << "  min flux      " << p.min_flux_adu << " ADU, min snr " << p.min_snr << "\n"
+              << "  saturation    " << (std::isfinite(saturation) ? std::to_string(saturation) + " ADU (raw)" : std::string("not checked")) << "\n"
+              << "  frame cap     " << c.max_frame_bytes << " bytes per part\n"
               << "  frames in     " << c.endpoints.frames_in << "\n"
               << "  measurements  " << c.endpoints.measurements_out << "\n"
               << "  control       " << c.endpoints.control << "\n";
+    for (const auto& w : c.warnings) std::cout << "warning: " << w << "\n";
     return 0;
   }
   if (config_path.empty()) {
@@ -104,8 +131,9 @@ int main(int argc, char** argv) {
   sigemptyset(&stop_signals);
   sigaddset(&stop_signals, SIGINT);
   sigaddset(&stop_signals, SIGTERM);
+  sigaddset(&stop_signals, SIGHUP);
   if (pthread_sigmask(SIG_BLOCK, &stop_signals, nullptr) != 0) {
-    spdlog::error("cannot block SIGINT/SIGTERM");
+    spdlog::error("cannot block SIGINT/SIGTERM/SIGHUP");
     return 1;
   }
   const int signal_fd = signalfd(-1, &stop_signals, SFD_CLOEXEC);

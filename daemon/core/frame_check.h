@@ -9,6 +9,7 @@
 #include <cstddef>
 #include <cstdint>
 #include <optional>
+#include <string>
 #include <string_view>
 
 #include "daemon/core/image_view.h"
@@ -43,8 +44,22 @@ struct FrameFacts {
   std::uint32_t width_px = 0;
   std::uint32_t height_px = 0;
   std::optional<PixelFormat> pixel_format;
+  std::uint32_t pixel_type_code = 0;   // the wire code, kept for messages
   std::uint32_t row_stride_bytes = 0;  // 0 = tightly packed
 };
+
+// What a rejected frame looked like, kept (by value, no allocation) so that
+// logs and status can say what arrived against what was expected.
+struct RejectedFrame {
+  FrameFacts facts;            // meaningful from kUnknownPixelType on
+  std::size_t parts = 0;       // message parts received
+  std::size_t header_bytes = 0;
+  std::size_t payload_bytes = 0;
+};
+
+// One line: what arrived and what was expected, e.g. "256 x 256 u16,
+// expected 240 x 240 u16".
+std::string describe_reject(FrameReject reason, const RejectedFrame& frame, const CameraSpec& camera);
 
 // Either a view over payload that is safe to read, or the reason it is not.
 struct FrameCheckResult {

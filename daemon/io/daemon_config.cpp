@@ -1,5 +1,6 @@
 #include "daemon/io/daemon_config.h"
 
+#include <algorithm>
 #include <fstream>
 #include <set>
 #include <sstream>
@@ -73,15 +74,10 @@ const std::set<std::string> kTables = {"endpoints", "camera", "lenslet_grid", "c
 
 }  // namespace
 
-std::string validate_endpoint(const std::string& e) {
-  for (const char* scheme : {"tcp://", "ipc://", "inproc://"})
-    if (e.rfind(scheme, 0) == 0 && e.size() > std::string(scheme).size()) return {};
-  return fmt::format("'{}' is not a ZeroMQ endpoint (expected tcp://host:port, ipc://path or inproc://name)", e);
-}
-
 std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& text,
                                                             const std::string& source,
-                                                            const std::filesystem::path& base_dir) {
+                                                            const std::filesystem::path& base_dir,
+                                                            ConfigLoad what) {
   auto fail = [&](const std::string& msg) { return ConfigError{fmt::format("{}: {}", source, msg)}; };
   toml::value root;
   try {
@@ -109,8 +105,23 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   ep.string("control", c.endpoints.control);
   ep.reject_unknown();
   if (!ep.error.empty()) return fail(ep.error);
-  for (const auto* e : {&c.endpoints.frames_in, &c.endpoints.measurements_out, &c.endpoints.control})
-    if (auto err = validate_endpoint(*e); !err.empty()) return fail("[endpoints] " + err);
+  const Endpoints& eps = c.endpoints;
+  for (const auto& [key, e] : {std::pair{"frames_in", &eps.frames_in}, std::pair{"measurements_out", &eps.measurements_out},
+                               std::pair{"control", &eps.control}}) {
+    if (auto err = validate_endpoint(*e); !err.empty()) return fail(fmt::format("[endpoints] {}: {}", key, err));
+    for (auto& w : endpoint_warnings(*e)) c.warnings.push_back(fmt::format("[endpoints] {}: {}", key, w));
+  }
+  if (eps.measurements_out == eps.control)
+    return fail(fmt::format("[endpoints] measurements_out and control are both '{}'; the daemon binds each, "
+                            "so they must differ", eps.control));
+  if (eps.frames_in == eps.measurements_out || eps.frames_in == eps.control)
+    c.warnings.push_back(fmt::format(
+        "[endpoints] frames_in '{}' is also one of the daemon's own bound endpoints: it would listen to "
+        "itself and never hear a camera", eps.frames_in));
+  if (eps.frames_in.rfind("inproc://", 0) == 0)
+    c.warnings.push_back(fmt::format(
+        "[endpoints] frames_in '{}' is inproc://, which only reaches sockets inside slopecastd itself: no "
+        "camera process can publish there", eps.frames_in));
 
   if (!table("camera")) return fail("missing table [camera] (width_px, height_px, pixel_type)");
   TableReader cam(table("camera"), "camera");
@@ -141,26 +152,57 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
     return fail("[lenslet_grid] subapertures_x, subapertures_y and pitch_px are required");
 
   TableReader cal(table("calibration"), "calibration");
-  std::string dark;
+  std::string dark, background = core::background_mode_name(p.background);
+  double saturation = 0.0;
   cal.string("dark_frame", dark);
+  cal.string("background", background);
   cal.number("min_flux_adu", p.min_flux_adu, 0.0);
+  cal.number("min_snr", p.min_snr, 0.0);
+  cal.number("saturation_adu", saturation, 0.0);
+  cal.number("min_valid_fraction", p.min_valid_fraction, 0.0);
   cal.reject_unknown();
   if (!cal.error.empty()) return fail(cal.error);
+  if (!core::parse_background_mode(background.c_str(), p.background))
+    return fail(fmt::format("[calibration] background: '{}' is not one of \"border\", \"none\"", background));
+  if (saturation > 0.0) p.saturation_adu = saturation;
 
   TableReader d(table("daemon"), "daemon");
   d.integer("frame_queue_depth", c.frame_queue_depth, 1, 10000);
   d.integer("measurement_queue_depth", c.measurement_queue_depth, 1, 100000);
   d.integer("latency_window_frames", c.latency_window_frames, 16, 1000000);
+  d.number("stale_after_s", c.stale_after_s, 0.001);
+  double max_jump = static_cast<double>(c.max_seq_jump), max_frame = 0.0;
+  d.number("max_seq_jump", max_jump, 1.0);
+  d.number("max_frame_bytes", max_frame, 0.0);
   d.reject_unknown();
   if (!d.error.empty()) return fail(d.error);
+  c.max_seq_jump = static_cast<std::uint64_t>(std::min(max_jump, 9.0e18));
 
   if (auto err = core::validate(p.camera); !err.empty()) return fail(err);
   if (auto err = core::validate(p.grid, p.camera); !err.empty()) return fail(err);
+  const std::int64_t frame_bytes = static_cast<std::int64_t>(p.camera.width_px) * p.camera.height_px *
+                                   static_cast<std::int64_t>(core::bytes_per_pixel(p.camera.format));
+  const std::int64_t default_cap = std::max<std::int64_t>(4 * frame_bytes + (1 << 20), std::int64_t{64} << 20);
+  c.max_frame_bytes = max_frame > 0.0 ? static_cast<std::int64_t>(max_frame) : default_cap;
+  if (c.max_frame_bytes < frame_bytes)
+    return fail(fmt::format("[daemon] max_frame_bytes {} is smaller than one {} x {} {} frame ({} bytes)",
+                            c.max_frame_bytes, p.camera.width_px, p.camera.height_px,
+                            core::pixel_format_name(p.camera.format), frame_bytes));
 
   if (!dark.empty()) {
     std::filesystem::path path(dark);
     if (path.is_relative()) path = base_dir / path;
     c.dark_frame = path;
+  }
+  if (dark.empty())
+    c.warnings.push_back(
+        p.background == core::BackgroundMode::kNone
+            ? "[calibration] no dark_frame and background = \"none\": the camera bias stays in every box, "
+              "pulling each centroid toward its box centre; configure a dark or background = \"border\""
+            : "[calibration] no dark_frame: each box's border background removes bias and diffuse light, "
+              "but fixed-pattern structure (hot pixels, uneven bias) stays in; acquire a dark for best results");
+  if (!dark.empty() && what.load_dark) {
+    const std::filesystem::path& path = c.dark_frame;
     auto image = read_fits_image(path);
     if (auto* e = std::get_if<FitsError>(&image)) return fail("[calibration] dark_frame: " + e->message);
     auto& img = std::get<FitsImage>(image);
@@ -174,12 +216,14 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   return c;
 }
 
-std::variant<DaemonConfig, ConfigError> load_daemon_config(const std::filesystem::path& file) {
+std::variant<DaemonConfig, ConfigError> load_daemon_config(const std::filesystem::path& file, ConfigLoad what) {
+  if (std::filesystem::is_directory(file))
+    return ConfigError{fmt::format("'{}' is a directory, not a config file", file.string())};
   std::ifstream in(file, std::ios::binary);
   if (!in) return ConfigError{fmt::format("cannot open config file '{}'", file.string())};
   std::stringstream text;
   text << in.rdbuf();
-  return parse_daemon_config(text.str(), file.string(), file.parent_path());
+  return parse_daemon_config(text.str(), file.string(), file.parent_path(), what);
 }
 
 }  // namespace slopecast::io

@@ -11,18 +11,21 @@
 #include <optional>
 #include <string>
 #include <variant>
+#include <vector>
 
 #include "daemon/core/pipeline.h"
+#include "daemon/io/endpoint.h"
 
 namespace slopecast::io {
 
 struct Endpoints {
-  // Where the camera (or `slopecast sim`) publishes frames; the daemon connects.
-  std::string frames_in = "tcp://127.0.0.1:6110";
+  // Where the camera (or `slopecast sim`) publishes frames; the camera binds
+  // a PUB (or XPUB) socket there and the daemon connects its SUB.
+  std::string frames_in = kDefaultFramesEndpoint;
   // Where the daemon publishes measurements; the daemon binds.
-  std::string measurements_out = "tcp://127.0.0.1:6111";
+  std::string measurements_out = kDefaultMeasurementsEndpoint;
   // Control request/reply; the daemon binds.
-  std::string control = "tcp://127.0.0.1:6112";
+  std::string control = kDefaultControlEndpoint;
 };
 
 struct DaemonConfig {
@@ -36,25 +39,42 @@ struct DaemonConfig {
   int measurement_queue_depth = 64;
   // Frames over which the status latency median/p99 are computed.
   int latency_window_frames = 4096;
+  // No frame for this long turns the status health from "ok" to "stale".
+  double stale_after_s = 1.0;
+  // A forward seq jump larger than this is taken as a camera restart (or a
+  // corrupt header), not as that many missed frames.
+  std::uint64_t max_seq_jump = 100000;
+  // Largest frame message part ZeroMQ accepts, bytes. A larger one makes
+  // ZeroMQ drop the connection; the daemon counts that and reconnects.
+  // 0 in the file means the default: max(4 x the configured frame + 1 MiB, 64 MiB).
+  std::int64_t max_frame_bytes = 0;
   // Dark frame path as resolved (empty: none). The pixels are in pipeline.dark_adu.
   std::filesystem::path dark_frame;
   core::PipelineSettings pipeline;
+  // Legal but probably wrong (no dark, a host that does not resolve, a
+  // deaf frames endpoint ...): printed by --check-config, logged at start.
+  std::vector<std::string> warnings;
 };
 
 struct ConfigError {
   std::string message;  // one or more lines naming the file, key and problem
 };
 
-// Parses, checks and (if configured) loads the dark frame.
-std::variant<DaemonConfig, ConfigError> load_daemon_config(const std::filesystem::path& file);
+// What to load besides the text. Clients that read a daemon's config for its
+// geometry and endpoints (slopecast sim/watch/status --config) skip the dark,
+// which may not exist yet.
+struct ConfigLoad {
+  bool load_dark = true;
+};
+
+// Parses, checks and (if configured and asked) loads the dark frame.
+std::variant<DaemonConfig, ConfigError> load_daemon_config(const std::filesystem::path& file,
+                                                           ConfigLoad what = {});
 
 // The same, from TOML text; base_dir resolves relative paths.
 std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& toml_text,
                                                             const std::string& source_name,
-                                                            const std::filesystem::path& base_dir);
-
-// Empty when endpoint is a ZeroMQ endpoint slopecast accepts (tcp://, ipc://,
-// inproc://); otherwise why not.
-std::string validate_endpoint(const std::string& endpoint);
+                                                            const std::filesystem::path& base_dir,
+                                                            ConfigLoad what = {});
 
 }  // namespace slopecast::io

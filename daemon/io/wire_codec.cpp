@@ -40,6 +40,7 @@ std::optional<core::FrameFacts> decode_frame_header(std::span<const std::byte> b
   f.width_px = h.width_px();
   f.height_px = h.height_px();
   f.pixel_format = from_wire(h.pixel_type());
+  f.pixel_type_code = static_cast<std::uint32_t>(h.pixel_type());
   f.row_stride_bytes = h.row_stride_bytes();
   return f;
 }

@@ -1,0 +1,30 @@
+#include <iostream>
+
+#include "client/cli/commands.h"
+#include "daemon/io/endpoint.h"
+
+namespace slopecast::cli {
+
+void fail(const char* command, const std::string& why) {
+  std::cerr << "slopecast " << command << ": " << why << "\n";
+  exit_code() = 2;
+}
+
+bool endpoint_ok(const char* command, const char* option, const std::string& endpoint) {
+  if (auto e = io::validate_endpoint(endpoint); !e.empty()) {
+    fail(command, std::string(option) + ": " + e);
+    return false;
+  }
+  return true;
+}
+
+std::optional<io::DaemonConfig> read_daemon_config(const char* command, const std::string& path) {
+  auto r = io::load_daemon_config(path, io::ConfigLoad{.load_dark = false});
+  if (auto* e = std::get_if<io::ConfigError>(&r)) {
+    fail(command, "--config: " + e->message);
+    return std::nullopt;
+  }
+  return std::get<io::DaemonConfig>(std::move(r));
+}
+
+}  // namespace slopecast::cli
