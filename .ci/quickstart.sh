@@ -2,16 +2,22 @@
 # slopecast quick start: installs the Debian 12 packages that are missing,
 # configures and builds (Release), then either runs the demo or the tests.
 #
-#   bash .ci/quickstart.sh demo   # daemon + simulated camera + 10 s live view
-#   bash .ci/quickstart.sh test   # the whole test suite through ctest
+#   bash .ci/quickstart.sh demo [BENCH]  # daemon + simulated camera + 10 s live view
+#                                        # BENCH: a folder of fixtures/ (harrow_vale)
+#   bash .ci/quickstart.sh test          # the whole test suite through ctest
 #
 # Run as root, or as a user with sudo (only apt-get is run through sudo).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
 mode="${1:-}"
+bench="${2:-harrow_vale}"
 if [[ "$mode" != demo && "$mode" != test ]]; then
-  echo "usage: bash .ci/quickstart.sh demo|test" >&2
+  echo "usage: bash .ci/quickstart.sh demo [BENCH] | test" >&2
+  exit 2
+fi
+if [[ "$mode" == demo && ! -f "fixtures/$bench/slopecastd.toml" ]]; then
+  echo "no bench '$bench': expected fixtures/$bench/slopecastd.toml" >&2
   exit 2
 fi
 
@@ -45,36 +51,41 @@ if [[ "$mode" == test ]]; then
   exec ctest --test-dir build --output-on-failure -j"$jobs"
 fi
 
-# ---- demo: the Harrow Vale bench (invented), simulated at 1 kHz ----------
+# ---- demo: an invented bench, its camera simulated -------------------------
 bin=build
-demo=build/demo
+demo=build/demo/$bench
 mkdir -p "$demo"
-cp fixtures/harrow_vale/slopecastd.toml "$demo/"
+cp "fixtures/$bench/slopecastd.toml" "$demo/"
+config="$demo/slopecastd.toml"
+read -r -a sim_args <"fixtures/$bench/sim.args"
 pids=()
 cleanup() { for p in "${pids[@]}"; do kill "$p" 2>/dev/null || true; done; wait 2>/dev/null || true; }
 trap cleanup EXIT
 
-echo "== acquiring a simulated dark (mean of 100 frames)"
-"$bin/client/cli/slopecast" sim --write-dark "$demo/harrow_vale_dark.fits" --dark-frames 100
-"$bin/daemon/app/slopecastd" --check-config "$demo/slopecastd.toml"
+dark=$(sed -n 's/^dark_frame *= *"\(.*\)".*/\1/p' "$config")
+if [[ -n "$dark" ]]; then
+  echo "== acquiring a simulated dark (mean of 100 frames)"
+  "$bin/client/cli/slopecast" sim --config "$config" --write-dark "$demo/$dark" --dark-frames 100
+fi
+"$bin/daemon/app/slopecastd" --check-config "$config"
 
 echo "== starting slopecastd (log: $demo/slopecastd.log)"
-"$bin/daemon/app/slopecastd" --config "$demo/slopecastd.toml" >"$demo/slopecastd.log" 2>&1 &
+"$bin/daemon/app/slopecastd" --config "$config" >"$demo/slopecastd.log" 2>&1 &
 daemon_pid=$!
 pids+=("$daemon_pid")
-if ! "$bin/client/cli/slopecast" status --wait-s 10 >/dev/null; then
+if ! "$bin/client/cli/slopecast" status --config "$config" --wait-s 10 >/dev/null; then
   echo "slopecastd did not come up; its log says:" >&2
   cat "$demo/slopecastd.log" >&2
   exit 1
 fi
 
-echo "== starting the simulated camera at 1 kHz (log: $demo/sim.log)"
-"$bin/client/cli/slopecast" sim --rate-hz 1000 >"$demo/sim.log" 2>&1 &
+echo "== starting the simulated camera, geometry from $config (log: $demo/sim.log)"
+"$bin/client/cli/slopecast" sim --config "$config" "${sim_args[@]}" >"$demo/sim.log" 2>&1 &
 pids+=("$!")
 
 echo "== live view for 10 s"
-"$bin/client/cli/slopecast" watch --duration-s 10 --idle-timeout-s 8
+"$bin/client/cli/slopecast" watch --config "$config" --duration-s 10 --idle-timeout-s 8
 echo "== the daemon's own view"
-"$bin/client/cli/slopecast" status
+"$bin/client/cli/slopecast" status --config "$config"
 kill -TERM "$daemon_pid"
 wait "$daemon_pid" && echo "== slopecastd stopped cleanly"

@@ -8,7 +8,6 @@
 namespace slopecast::core {
 
 namespace {
-constexpr float kMadToSigma = 1.4826f;  // 1 / Phi^-1(3/4)
 const float kRoundingSigma = static_cast<float>(1.0 / std::sqrt(12.0));
 
 // Median of v (reorders it). Even counts take the mean of the two middle values.
@@ -71,32 +70,36 @@ BorderStats border_stats(const WindowView& w, std::span<float> scratch) {
     }
   std::copy(ring, ring + n, work);
   b.median_adu = median_of(work, n);
-  for (int i = 0; i < n; ++i) work[i] = std::abs(ring[i] - b.median_adu);
-  const float mad_sigma = kMadToSigma * median_of(work, n);
-  // Median and MAD only locate the ring and clip its outliers (hot pixels,
-  // a spot tail) at 3.5 robust sigma. The level is the mean of the pixels
-  // kept: on integer data the median sticks to whole ADU, and each 1 ADU
-  // step moves a 225-pixel box's flux by 225 ADU, which gave empty boxes a
-  // lumpy, long-tailed flux (measured: a significance of 6.3 among 51 200
-  // empty boxes). The MAD is also a noisy rms (37 % efficiency at a
-  // Gaussian), so the rms of the kept pixels is the noise estimate.
   const double median = b.median_adu;
-  const float clip = 3.5f * std::max(mad_sigma, kRoundingSigma);
-  double sum = 0.0, sum2 = 0.0;
+  // The median anchors the ring; two rounds of 3.5-sigma clipping about it
+  // remove outliers (hot pixels, a spot tail), the first round's sigma taken
+  // from all pixels (an outlier only widens it), the second from the pixels
+  // the first kept. The level is the mean of the pixels kept: on integer data
+  // the median sticks to whole ADU, and each 1 ADU step moves a 225-pixel
+  // box's flux by 225 ADU, which gave empty boxes a lumpy, long-tailed flux
+  // (measured: a significance of 6.3 among 51 200 empty boxes). A second
+  // selection for the MAD cost 0.6 us per box (perf: 70 % of the frame).
+  double clip = HUGE_VAL, mean_d = 0.0, var = 0.0;
   int kept = 0;
-  for (int i = 0; i < n; ++i) {
-    const double d = ring[i] - median;
-    if (std::abs(d) > clip) continue;
-    sum += d;
-    sum2 += d * d;
-    ++kept;
+  for (int round = 0; round < 3; ++round) {
+    double sum = 0.0, sum2 = 0.0;
+    int k_round = 0;
+    for (int i = 0; i < n; ++i) {
+      const double d = ring[i] - median;
+      if (std::abs(d) > clip) continue;
+      sum += d;
+      sum2 += d * d;
+      ++k_round;
+    }
+    // The median lies within any clip of at least half the ring, so k_round > 0.
+    kept = k_round;
+    mean_d = sum / kept;
+    var = kept > 1 ? std::max((sum2 - kept * mean_d * mean_d) / (kept - 1), 0.0) : 0.0;
+    clip = 3.5 * std::max(std::sqrt(sum2 / kept), static_cast<double>(kRoundingSigma));
   }
-  // kept >= n/2 always: the median lies within any clip > 0 of half the ring.
-  const double mean_d = sum / kept;
   b.level_adu = static_cast<float>(median + mean_d);
   b.n_kept = kept;
-  const double var = kept > 1 ? (sum2 - kept * mean_d * mean_d) / (kept - 1) : 0.0;
-  b.sigma_adu = std::max(static_cast<float>(std::sqrt(std::max(var, 0.0))), kRoundingSigma);
+  b.sigma_adu = std::max(static_cast<float>(std::sqrt(var)), kRoundingSigma);
   return b;
 }
 

@@ -9,13 +9,12 @@
 // box, where a spot kept inside the box puts almost no light -- and
 // subtracts it.
 //
-// Estimator: the ring's median m and robust sigma 1.4826 MAD (the median
-// absolute deviation scaled to a Gaussian's rms; Hampel 1974, JASA 69, 383)
-// clip every ring pixel further than 3.5 robust sigma from m (hot pixels, a
-// spot tail); the background level is the mean of the n pixels kept and the
-// pixel noise sigma_pix is their rms, floored at 1/sqrt(12) ADU, the rounding
-// noise of an integer readout (derived: variance of a uniform distribution
-// of width 1).
+// Estimator: about the ring's median m, two rounds of clipping at 3.5 times
+// the rms about m (first of all ring pixels, then of those kept) remove hot
+// pixels and a spot tail; the background level is the mean of the n pixels
+// kept and the pixel noise sigma_pix is their rms, floored at 1/sqrt(12)
+// ADU, the rounding noise of an integer readout (derived: variance of a
+// uniform distribution of width 1).
 //
 // The flux F = sum over the box of (pixel - level) then has noise
 //

@@ -6,8 +6,8 @@
 // them would bias a noisy background). For a Gaussian spot and photon noise
 // the variance per axis is (sigma^2 + 1/12)/N_ph for pixel-integrated data
 // (Rousset 1999, in Roddier (ed.) "Adaptive Optics in Astronomy", with the
-// pixel term derived in shared/checks.md section 1.2); read noise adds
-// sigma_e^2 * sum x_i^2 / N_ph^2 (ibid. section 1.3).
+// pixel term derived in tests/REFERENCES.md R1.2); read noise adds
+// sigma_e^2 * sum x_i^2 / N_ph^2 (ibid. R1.3).
 #pragma once
 
 #include <vector>

@@ -36,6 +36,8 @@ class DaemonHarness {
   v1::StatusReply status();
   // Polls status until measurement_subscribers >= n (up to 5 s).
   [[nodiscard]] bool wait_for_subscribers(unsigned n);
+  // Sends a signal to the daemon.
+  void signal(int sig) { daemon_->signal(sig); }
   // SIGTERM, then the exit status if it exits within timeout.
   std::optional<int> stop(std::chrono::milliseconds timeout);
 

@@ -61,7 +61,7 @@ NoiseRun run(int trials, int n, double sigma, double photons, double read_e, std
 TEST_CASE("CoG photon noise matches (sigma^2 + 1/12)/N_ph for a pixel-integrated Gaussian", "[centroid][cog][noise]") {
   // Rousset 1999 (ch. 5 in Roddier (ed.), Adaptive Optics in Astronomy):
   // sigma_x^2 = sigma^2 / N_ph; the +1/12 px^2 term for pixel-integrated
-  // spots is derived in shared/checks.md section 1.2 (MC-checked there).
+  // spots is derived in tests/REFERENCES.md R1.2 (MC-checked there).
   // 4000 trials: the rms estimate has a relative standard error of
   // 1/sqrt(2*4000) = 1.1 %, so 10 % is about 9 standard errors.
   const double sigma = 1.0, photons = 1000.0;
@@ -77,7 +77,7 @@ TEST_CASE("CoG photon noise matches (sigma^2 + 1/12)/N_ph for a pixel-integrated
 TEST_CASE("CoG read noise adds sigma_e^2 sum(x_i^2) / N_ph^2", "[centroid][cog][noise]") {
   // Rousset 1999: sigma_phi^2 = (pi^2/3)(sigma_e/N_ph)^2 (N_s^2/N_D)^2, in
   // pixels sigma_e^2 N_s^2 (N_s^2 - 1)/(12 N_ph^2) for coordinates measured
-  // from the spot (shared/checks.md 1.3). With a spot offset x0 from the
+  // from the spot (tests/REFERENCES.md R1.3). With a spot offset x0 from the
   // window centre the sum is over (x_i - x0)^2, which we average per trial.
   // For N_s = 15, sigma_e = 3 e-, N_ph = 1000 the read term (0.038 px^2) is
   // 35x the photon term, so the difference of two runs measures it to ~3 %.
