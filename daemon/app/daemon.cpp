@@ -177,6 +177,11 @@ void Daemon::handle_monitor() {
                  "max_frame_bytes = {} bytes makes ZeroMQ close it, and so does a camera that stops; "
                  "reconnecting",
                  config_.endpoints.frames_in, stats_.frame_connection_drops, config_.max_frame_bytes);
+    // Frames already queued from that connection are lost when it is
+    // disconnected below: measure them first (a camera that sends its last
+    // frames and exits must not lose them).
+    while (handle_frames() > 0) {
+    }
     // After a protocol error (an over-size part) libzmq does not reconnect by
     // itself; a fresh connect does. Disconnect first so that a session that
     // is still retrying is not doubled (which would deliver frames twice).
@@ -189,9 +194,10 @@ void Daemon::handle_monitor() {
   }
 }
 
-void Daemon::handle_frames() {
-  for (int n = 0; n < kMaxFramesPerWake; ++n) {
-    if (!frames_.recv(header_msg_, zmq::recv_flags::dontwait)) return;
+int Daemon::handle_frames() {
+  int n = 0;
+  for (; n < kMaxFramesPerWake; ++n) {
+    if (!frames_.recv(header_msg_, zmq::recv_flags::dontwait)) return n;
     if (!header_msg_.more()) {
       handle_frame(header_msg_, nullptr, false);
       continue;
@@ -203,6 +209,7 @@ void Daemon::handle_frames() {
     for (bool more = extra; more; more = extra_msg_.more()) (void)frames_.recv(extra_msg_);
     handle_frame(header_msg_, &payload_msg_, extra);
   }
+  return n;
 }
 
 void Daemon::handle_frame(zmq::message_t& header, zmq::message_t* payload, bool extra_parts) {

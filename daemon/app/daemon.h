@@ -60,7 +60,8 @@ class Daemon {
   int run(int signal_fd);
 
  private:
-  void handle_frames();
+  // Handles up to kMaxFramesPerWake queued frames; returns how many.
+  int handle_frames();
   void handle_monitor();
   void note_signal(int signal_fd, bool& stop);
   void handle_frame(zmq::message_t& header, zmq::message_t* payload, bool extra_parts);

@@ -9,8 +9,8 @@
 // box, where a spot kept inside the box puts almost no light -- and
 // subtracts it.
 //
-// Estimator: about the ring's median m, two rounds of clipping at 3.5 times
-// the rms about m (first of all ring pixels, then of those kept) remove hot
+// Estimator: about the ring's median m, rounds of clipping at 3.5 times the
+// rms about m (first of all ring pixels, then of those kept, until stable) remove hot
 // pixels and a spot tail; the background level is the mean of the n pixels
 // kept and the pixel noise sigma_pix is their rms, floored at 1/sqrt(12)
 // ADU, the rounding noise of an integer readout (derived: variance of a
