@@ -16,7 +16,7 @@
 #include "client/lib/frame_publisher.h"
 #include "client/lib/measurement_tally.h"
 #include "client/sim/frame_bank.h"
-#include "daemon/core/pipeline.h"
+#include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/fits_image.h"
 #include "daemon/io/wire_codec.h"
 

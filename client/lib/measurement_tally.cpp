@@ -5,7 +5,7 @@
 
 #include <fmt/format.h>
 
-#include "daemon/core/percentile.h"
+#include "daemon/core/metrics/percentile.h"
 
 namespace slopecast::client {
 

@@ -14,7 +14,7 @@
 #include <string>
 #include <vector>
 
-#include "daemon/core/pixel_format.h"
+#include "daemon/core/frame/pixel_format.h"
 
 namespace slopecast::sim {
 

@@ -14,7 +14,7 @@
 
 #include "client/sim/detector_model.h"
 #include "client/sim/spot_field.h"
-#include "daemon/core/sensor_geometry.h"
+#include "daemon/core/geometry/sensor_geometry.h"
 
 namespace slopecast::sim {
 

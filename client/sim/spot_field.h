@@ -2,7 +2,7 @@
 // puts in each frame, and the truth it writes beside it.
 //
 // Each subaperture (ix, iy) gets one pixel-integrated Gaussian spot at its
-// zero point (the box centre, daemon/core/sensor_geometry.h) plus an offset
+// zero point (the box centre, daemon/core/geometry/sensor_geometry.h) plus an offset
 // (dx, dy) drawn uniformly from [-max_offset_px, max_offset_px], fresh for
 // every frame. The spot is clipped to its own box.
 #pragma once
@@ -11,7 +11,7 @@
 #include <string>
 #include <vector>
 
-#include "daemon/core/sensor_geometry.h"
+#include "daemon/core/geometry/sensor_geometry.h"
 
 namespace slopecast::sim {
 

@@ -2,7 +2,7 @@
 //
 // A spot of rms width sigma (px) centred at (x0, y0) carrying N photons puts
 // into pixel (x, y) — which covers [x-1/2, x+1/2] x [y-1/2, y+1/2], the
-// convention of daemon/core/image_view.h — exactly
+// convention of daemon/core/frame/image_view.h — exactly
 //
 //   N * [Phi((x+1/2-x0)/sigma) - Phi((x-1/2-x0)/sigma)]
 //     * [Phi((y+1/2-y0)/sigma) - Phi((y-1/2-y0)/sigma)],

@@ -9,7 +9,7 @@
 
 #include <spdlog/spdlog.h>
 
-#include "daemon/core/frame_check.h"
+#include "daemon/core/frame/frame_check.h"
 #include "daemon/io/wire_codec.h"
 
 namespace slopecast::app {

@@ -37,7 +37,7 @@
 #include <zmq.hpp>
 
 #include "daemon/app/daemon_stats.h"
-#include "daemon/core/pipeline.h"
+#include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/daemon_config.h"
 #include "slopecast/v1/control.pb.h"
 #include "slopecast/v1/frame.pb.h"

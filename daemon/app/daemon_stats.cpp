@@ -3,7 +3,7 @@
 #include <algorithm>
 #include <numeric>
 
-#include "daemon/core/percentile.h"
+#include "daemon/core/metrics/percentile.h"
 
 namespace slopecast::app {
 

@@ -10,7 +10,7 @@
 #include <cstdint>
 #include <vector>
 
-#include "daemon/core/frame_check.h"
+#include "daemon/core/frame/frame_check.h"
 
 namespace slopecast::app {
 

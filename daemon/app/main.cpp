@@ -13,7 +13,7 @@
 #include <spdlog/spdlog.h>
 
 #include "daemon/app/daemon.h"
-#include "daemon/core/pixel_format.h"
+#include "daemon/core/frame/pixel_format.h"
 #include "daemon/io/daemon_config.h"
 
 namespace {

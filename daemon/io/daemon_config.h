@@ -13,7 +13,7 @@
 #include <variant>
 #include <vector>
 
-#include "daemon/core/pipeline.h"
+#include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/endpoint.h"
 
 namespace slopecast::io {

@@ -10,9 +10,9 @@
 #include <optional>
 #include <span>
 
-#include "daemon/core/centroider.h"
-#include "daemon/core/frame_check.h"
-#include "daemon/core/frame_measurement.h"
+#include "daemon/core/centroid/centroider.h"
+#include "daemon/core/frame/frame_check.h"
+#include "daemon/core/pipeline/frame_measurement.h"
 #include "slopecast/v1/frame.pb.h"
 #include "slopecast/v1/measurement.pb.h"
 

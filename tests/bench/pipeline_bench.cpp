@@ -19,7 +19,7 @@
 
 #include "client/sim/detector_model.h"
 #include "client/sim/spot_field.h"
-#include "daemon/core/pipeline.h"
+#include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/wire_codec.h"
 
 using namespace slopecast;

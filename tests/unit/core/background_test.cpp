@@ -1,12 +1,12 @@
-// Border-ring background and the flux significance (daemon/core/background.h).
+// Border-ring background and the flux significance (daemon/core/metrics/background.h).
 #include <catch2/catch.hpp>
 
 #include <cmath>
 #include <random>
 #include <vector>
 
-#include "daemon/core/background.h"
-#include "daemon/core/pipeline.h"
+#include "daemon/core/metrics/background.h"
+#include "daemon/core/pipeline/pipeline.h"
 
 using namespace slopecast;
 

@@ -4,7 +4,7 @@
 #include <opencv2/imgproc.hpp>
 
 #include "client/sim/spot_image.h"
-#include "daemon/core/centroid_cog.h"
+#include "daemon/core/centroid/centroid_cog.h"
 
 using namespace slopecast;
 

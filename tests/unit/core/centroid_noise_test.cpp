@@ -5,7 +5,7 @@
 #include <random>
 
 #include "client/sim/spot_image.h"
-#include "daemon/core/centroid_cog.h"
+#include "daemon/core/centroid/centroid_cog.h"
 
 using namespace slopecast;
 

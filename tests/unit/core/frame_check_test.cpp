@@ -4,7 +4,7 @@
 #include <set>
 #include <vector>
 
-#include "daemon/core/frame_check.h"
+#include "daemon/core/frame/frame_check.h"
 
 using namespace slopecast::core;
 

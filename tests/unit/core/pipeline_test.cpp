@@ -8,7 +8,7 @@
 
 #include "client/sim/detector_model.h"
 #include "client/sim/spot_field.h"
-#include "daemon/core/pipeline.h"
+#include "daemon/core/pipeline/pipeline.h"
 
 using namespace slopecast;
 using core::PixelFormat;

@@ -1,7 +1,7 @@
 // Lenslet-grid conventions and validation.
 #include <catch2/catch.hpp>
 
-#include "daemon/core/sensor_geometry.h"
+#include "daemon/core/geometry/sensor_geometry.h"
 
 using namespace slopecast::core;
 

@@ -8,8 +8,8 @@
 #include <new>
 
 #include "client/sim/spot_field.h"
-#include "daemon/core/frame_check.h"
-#include "daemon/core/pipeline.h"
+#include "daemon/core/frame/frame_check.h"
+#include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/wire_codec.h"
 
 namespace {

@@ -9,7 +9,7 @@
 
 #include <string>
 
-#include "daemon/core/pixel_format.h"
+#include "daemon/core/frame/pixel_format.h"
 
 namespace slopecast::core {
 

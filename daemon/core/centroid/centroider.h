@@ -13,7 +13,7 @@
 #include <span>
 #include <string_view>
 
-#include "daemon/core/image_view.h"
+#include "daemon/core/frame/image_view.h"
 
 namespace slopecast::core {
 

@@ -1,4 +1,4 @@
-#include "daemon/core/box_correction.h"
+#include "daemon/core/frame/box_correction.h"
 
 #include <cassert>
 #include <cstdint>

@@ -34,7 +34,7 @@
 
 #include <span>
 
-#include "daemon/core/image_view.h"
+#include "daemon/core/frame/image_view.h"
 
 namespace slopecast::core {
 

@@ -1,4 +1,4 @@
-#include "daemon/core/frame_check.h"
+#include "daemon/core/frame/frame_check.h"
 
 #include <fmt/format.h>
 

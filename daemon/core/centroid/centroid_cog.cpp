@@ -1,4 +1,4 @@
-#include "daemon/core/centroid_cog.h"
+#include "daemon/core/centroid/centroid_cog.h"
 
 #include <algorithm>
 #include <cassert>

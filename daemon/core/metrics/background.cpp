@@ -1,4 +1,4 @@
-#include "daemon/core/background.h"
+#include "daemon/core/metrics/background.h"
 
 #include <algorithm>
 #include <cassert>

@@ -8,7 +8,7 @@
 
 #include <span>
 
-#include "daemon/core/image_view.h"
+#include "daemon/core/frame/image_view.h"
 
 namespace slopecast::core {
 

@@ -1,4 +1,4 @@
-#include "daemon/core/pixel_format.h"
+#include "daemon/core/frame/pixel_format.h"
 
 namespace slopecast::core {
 

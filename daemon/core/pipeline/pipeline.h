@@ -26,11 +26,11 @@
 #include <string>
 #include <vector>
 
-#include "daemon/core/background.h"
-#include "daemon/core/centroider.h"
-#include "daemon/core/frame_measurement.h"
-#include "daemon/core/image_view.h"
-#include "daemon/core/sensor_geometry.h"
+#include "daemon/core/metrics/background.h"
+#include "daemon/core/centroid/centroider.h"
+#include "daemon/core/pipeline/frame_measurement.h"
+#include "daemon/core/frame/image_view.h"
+#include "daemon/core/geometry/sensor_geometry.h"
 
 namespace slopecast::core {
 

@@ -12,7 +12,7 @@
 
 #include <vector>
 
-#include "daemon/core/centroider.h"
+#include "daemon/core/centroid/centroider.h"
 
 namespace slopecast::core {
 

@@ -9,7 +9,7 @@
 #include <cstddef>
 #include <span>
 
-#include "daemon/core/pixel_format.h"
+#include "daemon/core/frame/pixel_format.h"
 
 namespace slopecast::core {
 

@@ -1,4 +1,4 @@
-#include "daemon/core/sensor_geometry.h"
+#include "daemon/core/geometry/sensor_geometry.h"
 
 #include <fmt/format.h>
 

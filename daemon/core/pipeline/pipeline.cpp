@@ -1,4 +1,4 @@
-#include "daemon/core/pipeline.h"
+#include "daemon/core/pipeline/pipeline.h"
 
 #include <algorithm>
 #include <cassert>
@@ -7,8 +7,8 @@
 
 #include <fmt/format.h>
 
-#include "daemon/core/box_correction.h"
-#include "daemon/core/centroid_cog.h"
+#include "daemon/core/frame/box_correction.h"
+#include "daemon/core/centroid/centroid_cog.h"
 
 namespace slopecast::core {
 

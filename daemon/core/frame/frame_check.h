@@ -12,8 +12,8 @@
 #include <string>
 #include <string_view>
 
-#include "daemon/core/image_view.h"
-#include "daemon/core/sensor_geometry.h"
+#include "daemon/core/frame/image_view.h"
+#include "daemon/core/geometry/sensor_geometry.h"
 
 namespace slopecast::core {
 
