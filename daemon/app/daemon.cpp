@@ -107,7 +107,7 @@ int Daemon::run(int signal_fd) {
                kVersion, config_.endpoints.frames_in, config_.endpoints.measurements_out,
                config_.endpoints.control, config_.pipeline.camera.width_px,
                config_.pipeline.camera.height_px, core::pixel_format_name(config_.pipeline.camera.format),
-               g.n_subap_x, g.n_subap_y, g.pitch_px, core::centroider_name(config_.pipeline.centroider),
+               g.n_subap_x, g.n_subap_y, g.pitch_px, core::describe(config_.pipeline.centroider),
                config_.dark_frame.empty() ? std::string("none") : config_.dark_frame.string());
   for (const auto& w : config_.warnings) spdlog::warn("{}", w);
   zmq::pollitem_t items[] = {
@@ -198,6 +198,7 @@ int Daemon::handle_frames() {
   int n = 0;
   for (; n < kMaxFramesPerWake; ++n) {
     if (!frames_.recv(header_msg_, zmq::recv_flags::dontwait)) return n;
+    has_last_image_ = false;  // payload_msg_ is about to be overwritten
     if (!header_msg_.more()) {
       handle_frame(header_msg_, nullptr, false);
       continue;
@@ -255,6 +256,8 @@ void Daemon::handle_frame(zmq::message_t& header, zmq::message_t* payload, bool 
   const auto t_checked = std::chrono::steady_clock::now();
 
   pipeline_.measure(*checked.image, measurement_);
+  last_image_ = *checked.image;
+  has_last_image_ = true;
   ++stats_.frames_processed;
   const auto t_measured = std::chrono::steady_clock::now();
 
@@ -264,7 +267,8 @@ void Daemon::handle_frame(zmq::message_t& header, zmq::message_t* payload, bool 
   stamp.received_time_ns = received_ns;
   stamp.n_subap_x = config_.pipeline.grid.n_subap_x;
   stamp.n_subap_y = config_.pipeline.grid.n_subap_y;
-  stamp.centroider = config_.pipeline.centroider;
+  stamp.centroider = pipeline_.settings().centroider.kind;
+  stamp.settings_generation = settings_generation_;
   stamp.check_us = micros(t_checked - t_received);
   stamp.centroid_us = micros(t_measured - t_checked);
   stamp.published_time_ns = wall_ns();
@@ -378,6 +382,51 @@ void Daemon::fill_status(v1::StatusReply& s) {
   s.set_dark_loaded(!p.dark_adu.empty());
   s.set_pixel_type(std::string(core::pixel_format_name(p.camera.format)));
   s.set_max_frame_bytes(config_.max_frame_bytes);
+  io::describe_centroider(pipeline_.settings().centroider, settings_generation_, *s.mutable_centroider());
+}
+
+void Daemon::set_centroider(const v1::SetCentroiderRequest& req, v1::ControlReply& reply) {
+  const core::CentroiderSettings& now = pipeline_.settings().centroider;
+  core::CentroiderSettings next = now;
+  bool file_named = false;
+  for (const v1::CentroiderOption& o : req.options()) {
+    const auto value = io::from_wire(o);
+    if (!value) return reply.set_error(fmt::format("centroider option '{}' has no value", o.key()));
+    if (auto e = core::apply_option(next, o.key(), *value); !e.empty()) return reply.set_error(e);
+    file_named |= o.key() == "reference_file";
+  }
+  if (req.capture_reference()) {
+    if (!has_last_image_)
+      return reply.set_error("no measured frame to capture a reference from (none has arrived, or the last "
+                             "one was rejected); try again while frames flow");
+    auto ref = pipeline_.capture_reference(last_image_, measurement_);
+    if (auto* e = std::get_if<std::string>(&ref)) return reply.set_error("cannot capture a reference: " + *e);
+    next.reference = core::ReferenceSource::kCaptured;
+    next.reference_image = std::move(std::get<std::vector<float>>(ref));
+    next.reference_size = config_.pipeline.grid.pitch_px;
+  } else if (next.reference == core::ReferenceSource::kCaptured && now.reference != core::ReferenceSource::kCaptured) {
+    return reply.set_error("reference = \"captured\" needs an image captured from the live frames: send "
+                           "capture_reference (slopecast centroider --capture-reference)");
+  }
+  if (next.reference == core::ReferenceSource::kFile && (file_named || now.reference != core::ReferenceSource::kFile))
+    if (auto e = io::load_reference_image(next, config_.base_dir); !e.empty()) return reply.set_error(e);
+  core::PipelineSettings settings = pipeline_.settings();
+  settings.centroider = next;
+  if (auto e = core::validate(settings); !e.empty()) return reply.set_error(e);
+  const bool changed = req.capture_reference() || core::list_options(next) != core::list_options(now) ||
+                       next.reference_image != now.reference_image;
+  if (changed) {
+    // Built here, between two frames: the frame after this request is the
+    // first measured with the new settings.
+    pipeline_ = core::Pipeline(std::move(settings));
+    ++settings_generation_;
+    spdlog::info("centroider now {} (settings generation {})", core::describe(pipeline_.settings().centroider),
+                 settings_generation_);
+  }
+  auto* out = reply.mutable_centroider();
+  io::describe_centroider(pipeline_.settings().centroider, settings_generation_, *out);
+  out->set_changed(changed);
+  reply.set_ok(true);
 }
 
 void Daemon::handle_control() {
@@ -399,8 +448,11 @@ void Daemon::handle_control() {
         fill_status(*reply.mutable_status());
         reply.set_ok(true);
         break;
+      case v1::ControlRequest::kSetCentroider:
+        set_centroider(req.set_centroider(), reply);
+        break;
       case v1::ControlRequest::COMMAND_NOT_SET:
-        reply.set_error("empty request: set one command (status)");
+        reply.set_error("empty request: set one command (status, set_centroider)");
         break;
     }
   }

@@ -67,12 +67,22 @@ class Daemon {
   void handle_frame(zmq::message_t& header, zmq::message_t* payload, bool extra_parts);
   void reject(core::FrameReject reason, const core::RejectedFrame& frame);
   void handle_control();
+  // Applies a set_centroider request: fills reply with the settings in force,
+  // or an error and leaves them unchanged.
+  void set_centroider(const v1::SetCentroiderRequest& req, v1::ControlReply& reply);
   void handle_subscriptions();
   void tick(double period_s);
   void fill_status(v1::StatusReply& s);
 
   io::DaemonConfig config_;
+  // The settings in force live in pipeline_.settings(); config_.pipeline keeps
+  // what the daemon started with (camera and grid never change).
   core::Pipeline pipeline_;
+  std::uint32_t settings_generation_ = 1;  // +1 per applied settings change
+  // The last measured frame, for capturing a reference: a view into
+  // payload_msg_, valid while has_last_image_ (until the next frame is read).
+  core::ImageView last_image_{};
+  bool has_last_image_ = false;
   core::FrameMeasurement measurement_;
   v1::FrameHeader header_scratch_;
   v1::Measurement out_msg_;

@@ -10,6 +10,7 @@
 #include <iostream>
 
 #include <CLI/CLI.hpp>
+#include <fmt/format.h>
 #include <spdlog/spdlog.h>
 
 #include "daemon/app/daemon.h"
@@ -54,7 +55,16 @@ relative to the config file.
                                        no check for f32)
   min_valid_fraction = 0.5             fewer valid boxes than this fraction of the
                                        grid marks the frame few_valid (default 0.5)
+  edge_margin_px  = 1.0                a centroid closer than this to its box edge is
+                                       flagged near_edge (default 1; 0 turns it off)
+  min_contrast    = 0.0                correlation peak contrast below this is flagged
+                                       (0..1; default 0, off)
+  max_fwhm_px     = 0.0                a wider spot (FWHM, larger axis) is flagged
+                                       (default 0, off)
+  max_ellipticity = 0.0                a more elongated spot (1 - minor/major) is
+                                       flagged (0..1; default 0, off)
 
+@CENTROIDER@
   [daemon]
   frame_queue_depth     = 4            frames queued before newer ones drop (default 4)
   measurement_queue_depth = 64         measurements queued per subscriber before drops (default 64)
@@ -70,12 +80,25 @@ Signals: SIGINT and SIGTERM stop the daemon (exit 0); SIGHUP is logged and
 ignored (the config is read only at start).
 )";
 
+// The [centroider] part of the help, from the one table of options.
+std::string config_help() {
+  std::string centroider =
+      "  [centroider]                         how spots are measured; every key may be set,\n"
+      "                                       a method reads the ones it needs; the same keys\n"
+      "                                       change live with `slopecast centroider`\n";
+  for (const auto& o : slopecast::core::kCentroiderOptions)
+    centroider += fmt::format("  {:<24} {} [{}]\n", o.key, o.help, o.methods);
+  std::string help = kConfigHelp;
+  help.replace(help.find("@CENTROIDER@"), 12, centroider);
+  return help;
+}
+
 }  // namespace
 
 int main(int argc, char** argv) {
   using namespace slopecast;
   CLI::App cli{"slopecastd: Shack–Hartmann frames in, calibrated slopes out, over ZeroMQ."};
-  cli.footer(kConfigHelp);
+  cli.footer(config_help());
   std::string config_path, check_path, log_level = "info";
   cli.add_option("-c,--config", config_path, "Config file (TOML) to run with")->check(CLI::ExistingFile);
   cli.add_option("--check-config", check_path,
@@ -108,6 +131,7 @@ int main(int argc, char** argv) {
               << "  dark          " << (c.dark_frame.empty() ? "none" : c.dark_frame.string()) << "\n"
               << "  background    " << core::background_mode_name(p.background) << "\n"
               << "  min flux      " << p.min_flux_adu << " ADU, min snr " << p.min_snr << "\n"
+              << "  centroider    " << core::describe(p.centroider) << "\n"
               << "  saturation    " << (std::isfinite(saturation) ? std::to_string(saturation) + " ADU (raw)" : std::string("not checked")) << "\n"
               << "  frame cap     " << c.max_frame_bytes << " bytes per part\n"
               << "  frames in     " << c.endpoints.frames_in << "\n"

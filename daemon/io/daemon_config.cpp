@@ -70,7 +70,24 @@ class TableReader {
   std::set<std::string> used_;
 };
 
-const std::set<std::string> kTables = {"endpoints", "camera", "lenslet_grid", "calibration", "daemon"};
+const std::set<std::string> kTables = {"endpoints", "camera", "lenslet_grid", "calibration", "centroider",
+                                       "daemon"};
+
+// Every key of [centroider] goes through core::apply_option, the one place
+// those keys are known (shared with live control requests).
+std::string read_centroider(const toml::value* table, core::CentroiderSettings& s) {
+  if (!table) return {};
+  for (const auto& [key, v] : table->as_table()) {
+    core::OptionValue value;
+    if (v.is_integer()) value = static_cast<double>(v.as_integer());
+    else if (v.is_floating()) value = v.as_floating();
+    else if (v.is_boolean()) value = v.as_boolean();
+    else if (v.is_string()) value = v.as_string().str;
+    else return fmt::format("[centroider] {}: expected a number, true/false or a string", key);
+    if (auto e = core::apply_option(s, key, value); !e.empty()) return "[centroider] " + e;
+  }
+  return {};
+}
 
 }  // namespace
 
@@ -160,11 +177,17 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   cal.number("min_snr", p.min_snr, 0.0);
   cal.number("saturation_adu", saturation, 0.0);
   cal.number("min_valid_fraction", p.min_valid_fraction, 0.0);
+  cal.number("edge_margin_px", p.edge_margin_px, 0.0);
+  cal.number("min_contrast", p.min_contrast, 0.0);
+  cal.number("max_fwhm_px", p.max_fwhm_px, 0.0);
+  cal.number("max_ellipticity", p.max_ellipticity, 0.0);
   cal.reject_unknown();
   if (!cal.error.empty()) return fail(cal.error);
   if (!core::parse_background_mode(background.c_str(), p.background))
     return fail(fmt::format("[calibration] background: '{}' is not one of \"border\", \"none\"", background));
   if (saturation > 0.0) p.saturation_adu = saturation;
+
+  if (auto err = read_centroider(table("centroider"), p.centroider); !err.empty()) return fail(err);
 
   TableReader d(table("daemon"), "daemon");
   d.integer("frame_queue_depth", c.frame_queue_depth, 1, 10000);
@@ -201,7 +224,7 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
               "pulling each centroid toward its box centre; configure a dark or background = \"border\""
             : "[calibration] no dark_frame: each box's border background removes bias and diffuse light, "
               "but fixed-pattern structure (hot pixels, uneven bias) stays in; acquire a dark for best results");
-  if (!dark.empty() && what.load_dark) {
+  if (!dark.empty() && what.load_images) {
     const std::filesystem::path& path = c.dark_frame;
     auto image = read_fits_image(path);
     if (auto* e = std::get_if<FitsError>(&image)) return fail("[calibration] dark_frame: " + e->message);
@@ -212,8 +235,37 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
                               p.camera.height_px));
     p.dark_adu = std::move(img.pixels);
   }
-  if (auto err = core::validate(p); !err.empty()) return fail(err);
+  c.base_dir = base_dir;
+  if (p.centroider.reference == core::ReferenceSource::kCaptured)
+    return fail("[centroider] reference = \"captured\" exists only live (the daemon captures it from its "
+                "frames on request); in the file use \"gaussian\", or \"file\" with reference_file");
+  if (what.load_images) {
+    if (auto err = load_reference_image(p.centroider, base_dir); !err.empty()) return fail("[centroider] " + err);
+    if (auto err = core::validate(p); !err.empty()) return fail(err);
+  } else {
+    // Without the images, check everything else.
+    core::PipelineSettings q = p;
+    if (q.centroider.reference == core::ReferenceSource::kFile) q.centroider.reference = core::ReferenceSource::kGaussian;
+    q.dark_adu.clear();
+    if (auto err = core::validate(q); !err.empty()) return fail(err);
+  }
   return c;
+}
+
+std::string load_reference_image(core::CentroiderSettings& s, const std::filesystem::path& base_dir) {
+  if (s.reference != core::ReferenceSource::kFile) return {};
+  if (s.reference_file.empty()) return "reference = \"file\" needs reference_file (a FITS image of one box)";
+  std::filesystem::path path(s.reference_file);
+  if (path.is_relative()) path = base_dir / path;
+  auto image = read_fits_image(path);
+  if (auto* e = std::get_if<FitsError>(&image)) return "reference_file: " + e->message;
+  auto& img = std::get<FitsImage>(image);
+  if (img.width != img.height)
+    return fmt::format("reference_file {} is {} x {} px; it must be one square box", path.string(), img.width,
+                       img.height);
+  s.reference_image = std::move(img.pixels);
+  s.reference_size = img.width;
+  return {};
 }
 
 std::variant<DaemonConfig, ConfigError> load_daemon_config(const std::filesystem::path& file, ConfigLoad what) {

@@ -50,6 +50,9 @@ struct DaemonConfig {
   std::int64_t max_frame_bytes = 0;
   // Dark frame path as resolved (empty: none). The pixels are in pipeline.dark_adu.
   std::filesystem::path dark_frame;
+  // The config file's folder: relative paths, in the file and in live
+  // control requests (reference_file), are taken from here.
+  std::filesystem::path base_dir;
   core::PipelineSettings pipeline;
   // Legal but probably wrong (no dark, a host that does not resolve, a
   // deaf frames endpoint ...): printed by --check-config, logged at start.
@@ -61,11 +64,16 @@ struct ConfigError {
 };
 
 // What to load besides the text. Clients that read a daemon's config for its
-// geometry and endpoints (slopecast sim/watch/status --config) skip the dark,
-// which may not exist yet.
+// geometry and endpoints (slopecast sim/watch/status --config) skip the dark
+// and the correlation reference image, which may not exist yet.
 struct ConfigLoad {
-  bool load_dark = true;
+  bool load_images = true;
 };
+
+// For reference = "file": resolves reference_file against base_dir and
+// loads it into s.reference_image (one box, pitch x pitch px). Empty on
+// success (or when there is nothing to load), otherwise why not.
+std::string load_reference_image(core::CentroiderSettings& s, const std::filesystem::path& base_dir);
 
 // Parses, checks and (if configured and asked) loads the dark frame.
 std::variant<DaemonConfig, ConfigError> load_daemon_config(const std::filesystem::path& file,

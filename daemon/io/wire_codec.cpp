@@ -17,6 +17,12 @@ v1::PixelType to_wire(core::PixelFormat f) {
 v1::Centroider to_wire(core::CentroiderKind k) {
   switch (k) {
     case core::CentroiderKind::kCog: return v1::CENTROIDER_COG;
+    case core::CentroiderKind::kThresholded: return v1::CENTROIDER_TCOG;
+    case core::CentroiderKind::kWeighted: return v1::CENTROIDER_WCOG;
+    case core::CentroiderKind::kBrightest: return v1::CENTROIDER_BRIGHTEST;
+    case core::CentroiderKind::kCorrelation: return v1::CENTROIDER_CORRELATION;
+    case core::CentroiderKind::kQuadCell: return v1::CENTROIDER_QUAD_CELL;
+    case core::CentroiderKind::kGaussianFit: return v1::CENTROIDER_GAUSSIAN_FIT;
   }
   return v1::CENTROIDER_UNSPECIFIED;
 }
@@ -71,6 +77,13 @@ void encode_measurement(const core::FrameMeasurement& m, const MeasurementStamp&
   copy_into(msg.mutable_flags(), m.flags);
   copy_into(msg.mutable_background_adu(), m.background_adu);
   copy_into(msg.mutable_snr(), m.snr);
+  copy_into(msg.mutable_fwhm_x_px(), m.fwhm_x_px);
+  copy_into(msg.mutable_fwhm_y_px(), m.fwhm_y_px);
+  copy_into(msg.mutable_ellipticity(), m.ellipticity);
+  copy_into(msg.mutable_quality(), m.quality);
+  msg.set_total_flux_adu(m.total_flux_adu);
+  msg.set_median_fwhm_px(m.median_fwhm_px);
+  msg.set_settings_generation(s.settings_generation);
   msg.set_health(m.health);
   msg.set_n_saturated(static_cast<std::uint32_t>(m.n_saturated));
   auto* valid = msg.mutable_valid();
@@ -83,6 +96,31 @@ void encode_measurement(const core::FrameMeasurement& m, const MeasurementStamp&
   auto* t = msg.mutable_stage_times();
   t->set_check_us(s.check_us);
   t->set_centroid_us(s.centroid_us);
+}
+
+void to_wire(const std::string& key, const core::OptionValue& value, v1::CentroiderOption& out) {
+  out.set_key(key);
+  if (const double* d = std::get_if<double>(&value)) out.set_number(*d);
+  else if (const bool* b = std::get_if<bool>(&value)) out.set_flag(*b);
+  else out.set_text(std::get<std::string>(value));
+}
+
+std::optional<core::OptionValue> from_wire(const v1::CentroiderOption& o) {
+  switch (o.value_case()) {
+    case v1::CentroiderOption::kNumber: return core::OptionValue(o.number());
+    case v1::CentroiderOption::kFlag: return core::OptionValue(o.flag());
+    case v1::CentroiderOption::kText: return core::OptionValue(o.text());
+    case v1::CentroiderOption::VALUE_NOT_SET: break;
+  }
+  return std::nullopt;
+}
+
+void describe_centroider(const core::CentroiderSettings& s, std::uint32_t generation, v1::CentroiderReply& out) {
+  out.set_method(std::string(core::centroider_name(s.kind)));
+  out.clear_options();
+  for (const auto& [key, value] : core::list_options(s)) to_wire(key, value, *out.add_options());
+  out.set_settings_generation(generation);
+  out.set_summary(core::describe(s));
 }
 
 }  // namespace slopecast::io

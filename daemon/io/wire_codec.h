@@ -10,9 +10,10 @@
 #include <optional>
 #include <span>
 
-#include "daemon/core/centroid/centroider.h"
+#include "daemon/core/centroid/centroider_settings.h"
 #include "daemon/core/frame/frame_check.h"
 #include "daemon/core/pipeline/frame_measurement.h"
+#include "slopecast/v1/control.pb.h"
 #include "slopecast/v1/frame.pb.h"
 #include "slopecast/v1/measurement.pb.h"
 
@@ -38,9 +39,17 @@ struct MeasurementStamp {
   int n_subap_x = 0;
   int n_subap_y = 0;
   core::CentroiderKind centroider = core::CentroiderKind::kCog;
+  std::uint32_t settings_generation = 1;
   float check_us = 0.0f;
   float centroid_us = 0.0f;
 };
+
+// A centroider option as a control message field, and back (nullopt when
+// the option carries no value).
+void to_wire(const std::string& key, const core::OptionValue& value, v1::CentroiderOption& out);
+std::optional<core::OptionValue> from_wire(const v1::CentroiderOption& option);
+// The whole centroider in force, for replies.
+void describe_centroider(const core::CentroiderSettings& s, std::uint32_t generation, v1::CentroiderReply& out);
 
 // Fills msg from m and stamp. msg is reused between frames: after the first
 // frame, its repeated fields already have capacity and this does not allocate.

@@ -18,6 +18,11 @@ enum SubapertureFlag : std::uint32_t {
   kFlagLowSnr = 1u << 2,      // flux / its noise below min_snr
   kFlagOutsideBox = 1u << 3,  // the centroid lies outside the subaperture box
   kFlagSaturated = 1u << 4,   // a raw pixel in the box at or above saturation_adu
+  kFlagNearEdge = 1u << 5,    // the centroid lies within edge_margin_px of the box edge (light lost outside)
+  kFlagLowContrast = 1u << 6, // correlation peak contrast below min_contrast
+  kFlagWide = 1u << 7,        // FWHM (larger axis) above max_fwhm_px
+  kFlagElongated = 1u << 8,   // ellipticity above max_ellipticity
+  kFlagMethodFailed = 1u << 9,// the method placed the spot but does not vouch for it (see SpotEstimate::failed)
 };
 
 // Bits of FrameMeasurement::health; 0 means a controller may act on the
@@ -44,6 +49,15 @@ struct FrameMeasurement {
   std::vector<float> background_adu;
   // flux / its estimated noise (see background.h); 0 where flux <= 0.
   std::vector<float> snr;
+  // Spot widths, FWHM px: the method's own (Gaussian fit) or from the
+  // window's second moments (metrics/window_moments.h); 0 where undefined.
+  std::vector<float> fwhm_x_px;
+  std::vector<float> fwhm_y_px;
+  // 1 - minor/major axis from the second moments, 0..1.
+  std::vector<float> ellipticity;
+  // The method's figure of merit (SpotEstimate::quality): correlation peak
+  // contrast, Gaussian-fit reduced chi^2; 0 for the others.
+  std::vector<float> quality;
   std::vector<std::uint32_t> flags;  // SubapertureFlag bits
 
   int n_valid = 0;
@@ -51,10 +65,14 @@ struct FrameMeasurement {
   float slope_rms_x_px = 0.0f;   // rms over valid subapertures
   float slope_rms_y_px = 0.0f;
   float mean_flux_adu = 0.0f;    // mean over valid subapertures
+  float total_flux_adu = 0.0f;   // sum over every subaperture with finite pixels
+  float median_fwhm_px = 0.0f;   // median over valid subapertures of (fwhm_x + fwhm_y) / 2
   std::uint32_t health = kHealthOk;  // FrameHealthBit bits
 
   void resize(int n) {
-    for (auto* v : {&slope_x_px, &slope_y_px, &flux_adu, &peak_adu, &background_adu, &snr}) v->assign(n, 0.0f);
+    for (auto* v : {&slope_x_px, &slope_y_px, &flux_adu, &peak_adu, &background_adu, &snr, &fwhm_x_px,
+                    &fwhm_y_px, &ellipticity, &quality})
+      v->assign(n, 0.0f);
     flags.assign(n, kFlagNone);
   }
   int size() const { return static_cast<int>(flags.size()); }

@@ -8,18 +8,9 @@
 #include <fmt/format.h>
 
 #include "daemon/core/frame/box_correction.h"
-#include "daemon/core/centroid/centroid_cog.h"
+#include "daemon/core/centroid/make_centroider.h"
 
 namespace slopecast::core {
-
-namespace {
-std::unique_ptr<Centroider> make_centroider(CentroiderKind kind, int strip_width_px) {
-  switch (kind) {
-    case CentroiderKind::kCog: return std::make_unique<CogCentroider>(strip_width_px);
-  }
-  return nullptr;
-}
-}  // namespace
 
 double full_scale_adu(PixelFormat format) {
   switch (format) {
@@ -46,6 +37,12 @@ std::string validate(const PipelineSettings& s) {
     return fmt::format("min_snr must be a finite number >= 0, got {}", s.min_snr);
   if (!(s.min_valid_fraction >= 0.0 && s.min_valid_fraction <= 1.0))
     return fmt::format("min_valid_fraction must be 0..1, got {}", s.min_valid_fraction);
+  for (auto [name, v] : {std::pair{"edge_margin_px", s.edge_margin_px}, std::pair{"min_contrast", s.min_contrast},
+                         std::pair{"max_fwhm_px", s.max_fwhm_px}, std::pair{"max_ellipticity", s.max_ellipticity}})
+    if (!std::isfinite(v) || v < 0.0) return fmt::format("{} must be a finite number >= 0, got {}", name, v);
+  if (s.min_contrast > 1.0) return fmt::format("min_contrast is a contrast 0..1, got {}", s.min_contrast);
+  if (s.max_ellipticity > 1.0) return fmt::format("max_ellipticity is 0..1, got {}", s.max_ellipticity);
+  if (auto e = validate(s.centroider, s.grid.pitch_px); !e.empty()) return "centroider: " + e;
   if (s.saturation_adu && !(*s.saturation_adu > 0.0))
     return fmt::format("saturation_adu must be > 0, got {}", *s.saturation_adu);
   if (s.background == BackgroundMode::kBorder && s.grid.pitch_px < kMinPitchForBorderBackground)
@@ -58,14 +55,18 @@ std::string validate(const PipelineSettings& s) {
 
 Pipeline::Pipeline(PipelineSettings settings)
     : settings_(std::move(settings)),
-      centroider_(make_centroider(settings_.centroider, settings_.grid.n_subap_x * settings_.grid.pitch_px)),
+      centroider_(make_centroider(settings_.centroider, settings_.grid.pitch_px)),
       strip_(static_cast<std::size_t>(settings_.grid.pitch_px) * settings_.grid.n_subap_x * settings_.grid.pitch_px),
       column_max_(static_cast<std::size_t>(settings_.grid.n_subap_x) * settings_.grid.pitch_px),
       border_(2 * static_cast<std::size_t>(border_pixel_count(settings_.grid.pitch_px, settings_.grid.pitch_px))),
       borders_(static_cast<std::size_t>(settings_.grid.count())),
       estimates_(static_cast<std::size_t>(settings_.grid.count())),
+      contexts_(static_cast<std::size_t>(settings_.grid.count())),
+      moments_(settings_.grid.n_subap_x * settings_.grid.pitch_px),
+      scratch_moments_(static_cast<std::size_t>(settings_.grid.n_subap_x)),
       raw_max_(static_cast<std::size_t>(settings_.grid.count())),
       sigmas_(static_cast<std::size_t>(settings_.grid.count())),
+      fwhms_(static_cast<std::size_t>(settings_.grid.count())),
       saturation_adu_(static_cast<float>(settings_.saturation_adu.value_or(full_scale_adu(settings_.camera.format)))) {
   assert(validate(settings_).empty());
 }
@@ -100,7 +101,13 @@ void Pipeline::measure(const ImageView& image, FrameMeasurement& out) {
         raw_max_[row0 + ix] = *std::max_element(cm, cm + p);
       }
     }
-    centroider_->measure_strip(strip, std::span<SpotEstimate>(estimates_).subspan(row0, g.n_subap_x));
+    moments_.strip(strip, scratch_moments_);
+    for (int ix = 0; ix < g.n_subap_x; ++ix) {
+      contexts_[row0 + ix].moments = scratch_moments_[ix];
+      contexts_[row0 + ix].noise_adu = borders_[row0 + ix].sigma_adu;
+    }
+    centroider_->measure_strip(strip, std::span<const WindowContext>(contexts_).subspan(row0, g.n_subap_x),
+                               std::span<SpotEstimate>(estimates_).subspan(row0, g.n_subap_x));
   }
   decide(out);
 }
@@ -111,6 +118,9 @@ void Pipeline::decide(FrameMeasurement& out) {
   const int p = g.pitch_px;
   const double centre = 0.5 * (p - 1);             // box centre, window-local px
   const double edge_lo = -0.5, edge_hi = p - 0.5;  // box edges, window-local px
+  const bool check_edge = s.edge_margin_px > 0.0 && p >= 2.0 * s.edge_margin_px + 2.0;
+  const double near_lo = edge_lo + s.edge_margin_px, near_hi = edge_hi - s.edge_margin_px;
+  const bool check_contrast = s.min_contrast > 0.0 && s.centroider.kind == CentroiderKind::kCorrelation;
   const int n_pixels = p * p;
   const bool subtract = s.background == BackgroundMode::kBorder;
   const bool check_saturation = std::isfinite(saturation_adu_);
@@ -130,30 +140,48 @@ void Pipeline::decide(FrameMeasurement& out) {
     frame_sigma = sigmas_[n_sigmas / 2];
   }
 
-  double sum_x2 = 0.0, sum_y2 = 0.0, sum_flux = 0.0;
+  double sum_x2 = 0.0, sum_y2 = 0.0, sum_flux = 0.0, total_flux = 0.0;
   int n_valid = 0, n_saturated = 0, n_lit = 0;
   bool any_non_finite = false;
   for (int i = 0; i < g.count(); ++i) {
     const SpotEstimate& e = estimates_[i];
+    const WindowMoments& m = contexts_[i].moments;
     const BorderStats& b = borders_[i];
     // A non-finite pixel (possible in f32 frames) must not leak NaN onto
     // the wire: the flag says why, the numbers become 0.
-    const bool finite = std::isfinite(e.flux) && std::isfinite(e.peak) && b.finite;
+    const bool finite = std::isfinite(m.flux) && std::isfinite(m.peak) && b.finite;
+    const bool placed = e.located && std::isfinite(e.x) && std::isfinite(e.y);
     const double snr =
-        finite ? flux_snr(e.flux, std::max(b.sigma_adu, frame_sigma), n_pixels, b.n_kept, subtract) : 0.0;
-    out.flux_adu[i] = finite ? static_cast<float>(e.flux) : 0.0f;
-    out.peak_adu[i] = finite ? static_cast<float>(e.peak) : 0.0f;
+        finite ? flux_snr(m.flux, std::max(b.sigma_adu, frame_sigma), n_pixels, b.n_kept, subtract) : 0.0;
+    const SpotShape shape = finite ? spot_shape(m) : SpotShape{};
+    const bool own_width = std::isfinite(e.fwhm_x) && std::isfinite(e.fwhm_y);
+    const double fwhm_x = own_width ? e.fwhm_x : shape.fwhm_x, fwhm_y = own_width ? e.fwhm_y : shape.fwhm_y;
+    const float quality = std::isfinite(e.quality) ? e.quality : 0.0f;
+    out.flux_adu[i] = finite ? static_cast<float>(m.flux) : 0.0f;
+    out.peak_adu[i] = finite ? static_cast<float>(m.peak) : 0.0f;
     out.background_adu[i] = finite && subtract ? b.level_adu : 0.0f;
     out.snr[i] = static_cast<float>(std::min(snr, 1e9));
+    out.fwhm_x_px[i] = static_cast<float>(std::min(fwhm_x, 1e9));
+    out.fwhm_y_px[i] = static_cast<float>(std::min(fwhm_y, 1e9));
+    out.ellipticity[i] = static_cast<float>(shape.ellipticity);
+    out.quality[i] = finite ? quality : 0.0f;
     std::uint32_t flags = kFlagNone;
-    if (!finite || (e.flux > 0.0 && !e.located)) flags |= kFlagNonFinite;
-    if (finite && !(e.flux >= s.min_flux_adu && e.flux > 0.0)) flags |= kFlagLowFlux;
+    if (!finite || (m.flux > 0.0 && !placed)) flags |= kFlagNonFinite;
+    if (finite && !(m.flux >= s.min_flux_adu && m.flux > 0.0)) flags |= kFlagLowFlux;
     if (finite && s.min_snr > 0.0 && snr < s.min_snr) flags |= kFlagLowSnr;
-    if (e.located && (e.x < edge_lo || e.x > edge_hi || e.y < edge_lo || e.y > edge_hi))
-      flags |= kFlagOutsideBox;
+    if (placed) {
+      if (e.x < edge_lo || e.x > edge_hi || e.y < edge_lo || e.y > edge_hi) flags |= kFlagOutsideBox;
+      else if (check_edge && (e.x < near_lo || e.x > near_hi || e.y < near_lo || e.y > near_hi))
+        flags |= kFlagNearEdge;
+      if (e.failed) flags |= kFlagMethodFailed;
+    }
+    if (finite && check_contrast && quality < s.min_contrast) flags |= kFlagLowContrast;
+    if (finite && s.max_fwhm_px > 0.0 && std::max(fwhm_x, fwhm_y) > s.max_fwhm_px) flags |= kFlagWide;
+    if (finite && s.max_ellipticity > 0.0 && shape.ellipticity > s.max_ellipticity) flags |= kFlagElongated;
     if (check_saturation && raw_max_[i] >= saturation_adu_) flags |= kFlagSaturated;
     out.flags[i] = flags;
     any_non_finite |= !finite;
+    if (finite) total_flux += m.flux;
     if (flags & kFlagSaturated) ++n_saturated;
     if (!(flags & (kFlagLowFlux | kFlagLowSnr | kFlagNonFinite))) ++n_lit;
     if (flags != kFlagNone) {
@@ -166,7 +194,8 @@ void Pipeline::decide(FrameMeasurement& out) {
     out.slope_y_px[i] = static_cast<float>(sy);
     sum_x2 += sx * sx;
     sum_y2 += sy * sy;
-    sum_flux += e.flux;
+    sum_flux += m.flux;
+    fwhms_[n_valid] = 0.5f * (out.fwhm_x_px[i] + out.fwhm_y_px[i]);
     ++n_valid;
   }
   out.n_valid = n_valid;
@@ -174,12 +203,57 @@ void Pipeline::decide(FrameMeasurement& out) {
   out.slope_rms_x_px = n_valid ? static_cast<float>(std::sqrt(sum_x2 / n_valid)) : 0.0f;
   out.slope_rms_y_px = n_valid ? static_cast<float>(std::sqrt(sum_y2 / n_valid)) : 0.0f;
   out.mean_flux_adu = n_valid ? static_cast<float>(sum_flux / n_valid) : 0.0f;
+  out.total_flux_adu = static_cast<float>(total_flux);
+  out.median_fwhm_px = 0.0f;
+  if (n_valid > 0) {
+    std::nth_element(fwhms_.begin(), fwhms_.begin() + n_valid / 2, fwhms_.begin() + n_valid);
+    out.median_fwhm_px = fwhms_[n_valid / 2];
+  }
   std::uint32_t health = kHealthOk;
   if (n_saturated > 0) health |= kHealthSaturated;
   if (n_lit == 0) health |= kHealthNoLight;
   if (n_valid < s.min_valid_fraction * g.count()) health |= kHealthFewValid;
   if (any_non_finite) health |= kHealthNonFinite;
   out.health = health;
+}
+
+std::variant<std::vector<float>, std::string> Pipeline::capture_reference(const ImageView& image,
+                                                                          const FrameMeasurement& measured) const {
+  const LensletGrid& g = settings_.grid;
+  const int p = g.pitch_px;
+  std::vector<float> box(static_cast<std::size_t>(p) * p), ring(2 * static_cast<std::size_t>(border_pixel_count(p, p)));
+  std::vector<double> sum(box.size(), 0.0);
+  std::vector<int> count(box.size(), 0);
+  int used = 0;
+  for (int iy = 0; iy < g.n_subap_y; ++iy)
+    for (int ix = 0; ix < g.n_subap_x; ++ix) {
+      const int i = iy * g.n_subap_x + ix;
+      if (measured.flags[i] != kFlagNone) continue;
+      correct_box(image, settings_.dark_adu, Box{g.box_x0(ix), g.box_y0(iy), p, p}, box);
+      const WindowView w{box.data(), p, p, p};
+      const BorderStats b = border_stats(w, ring);
+      const float level = settings_.background == BackgroundMode::kBorder && b.finite ? b.level_adu : 0.0f;
+      const int dx = static_cast<int>(std::lround(measured.slope_x_px[i]));
+      const int dy = static_cast<int>(std::lround(measured.slope_y_px[i]));
+      for (int y = 0; y < p; ++y)
+        for (int x = 0; x < p; ++x) {
+          const int sx = x + dx, sy = y + dy;  // the pixel that lands on (x, y)
+          if (sx < 0 || sy < 0 || sx >= p || sy >= p) continue;
+          sum[static_cast<std::size_t>(y) * p + x] += box[static_cast<std::size_t>(sy) * p + sx] - level;
+          ++count[static_cast<std::size_t>(y) * p + x];
+        }
+      ++used;
+    }
+  if (used == 0) return std::string("no subaperture of the frame is valid, so there is no spot to take as the reference");
+  double total = 0.0;
+  for (std::size_t k = 0; k < sum.size(); ++k) {
+    if (count[k] > 0) sum[k] /= count[k];
+    total += sum[k];
+  }
+  if (!(total > 0.0)) return std::string("the mean of the valid spots has no positive light");
+  std::vector<float> ref(sum.size());
+  for (std::size_t k = 0; k < sum.size(); ++k) ref[k] = static_cast<float>(sum[k] / total);
+  return ref;
 }
 
 }  // namespace slopecast::core

@@ -2,11 +2,12 @@
 //
 //   pass 1, pixels -- for each row of subapertures: correct the strip of
 //   boxes (raw - dark, noting each column's raw maximum) -> per box: border
-//   statistics and background subtraction (background.h) -> centroid every
-//   box;
+//   statistics and background subtraction (background.h) -> one sweep for
+//   every box's flux, peak and moments (window_moments.h) -> the centroider,
+//   given those facts;
 //   pass 2, decisions -- the frame's median pixel noise; per box: flux
-//   significance, validity flags, slope = position - zero point; then frame
-//   statistics and the frame health word.
+//   significance, spot widths and shape, validity flags, slope = position -
+//   zero point; then frame statistics and the frame health word.
 //
 // Validity (frame_measurement.h): a subaperture is valid only when no flag
 // is set; every reason that applies is flagged, not just the first.
@@ -24,10 +25,12 @@
 #include <memory>
 #include <optional>
 #include <string>
+#include <variant>
 #include <vector>
 
 #include "daemon/core/metrics/background.h"
 #include "daemon/core/centroid/centroider.h"
+#include "daemon/core/metrics/window_moments.h"
 #include "daemon/core/pipeline/frame_measurement.h"
 #include "daemon/core/frame/image_view.h"
 #include "daemon/core/geometry/sensor_geometry.h"
@@ -54,7 +57,21 @@ struct PipelineSettings {
   // Fewer valid subapertures than this fraction of the grid sets
   // kHealthFewValid on the frame; 0 turns the check off.
   double min_valid_fraction = 0.5;
-  CentroiderKind centroider = CentroiderKind::kCog;
+  // A centroid closer than this to the box edge is flagged kFlagNearEdge:
+  // part of the spot's light falls outside the box and pulls it inward.
+  // 0 turns the check off; it is skipped for boxes narrower than
+  // 2 * edge_margin_px + 2 px (a quad-cell's 2 x 2 box), which would
+  // always be "near".
+  double edge_margin_px = 1.0;
+  // Correlation peak contrast (CorrelationCentroider) below this is flagged
+  // kFlagLowContrast; 0 turns the check off.
+  double min_contrast = 0.0;
+  // A spot wider than this (FWHM, larger axis) is flagged kFlagWide; 0: off.
+  double max_fwhm_px = 0.0;
+  // A spot more elongated than this (1 - minor/major) is flagged
+  // kFlagElongated; 0: off.
+  double max_ellipticity = 0.0;
+  CentroiderSettings centroider;
 };
 
 // The raw level at which a pixel of this format counts as saturated by
@@ -77,6 +94,16 @@ class Pipeline {
   // out came from make_measurement().
   void measure(const ImageView& image, FrameMeasurement& out);
 
+  // A correlation reference from a frame already measured by this pipeline:
+  // the mean of its valid subapertures' corrected boxes, each moved by its
+  // slope rounded to whole pixels so that the mean is not blurred by the
+  // spread of slopes (pixels no box covers after the move stay 0), then
+  // normalised to unit sum; pitch x pitch floats. For extended scenes, where
+  // every subaperture sees the same scene. Allocates (it runs on request,
+  // not per frame). Returns a sentence instead when no subaperture is valid.
+  std::variant<std::vector<float>, std::string> capture_reference(const ImageView& image,
+                                                                  const FrameMeasurement& measured) const;
+
  private:
   // Pass 2 of measure(): flags, slopes and frame figures from the per-box
   // results of pass 1.
@@ -89,8 +116,12 @@ class Pipeline {
   std::vector<float> border_;            // scratch: one box's border ring
   std::vector<BorderStats> borders_;     // scratch: one per box of the grid
   std::vector<SpotEstimate> estimates_;  // scratch: one per box of the grid
+  std::vector<WindowContext> contexts_;  // scratch: one per box of the grid
+  MomentAccumulator moments_;
+  std::vector<WindowMoments> scratch_moments_;  // scratch: one per box of a strip
   std::vector<float> raw_max_;           // scratch: raw maximum per box of the grid
   std::vector<float> sigmas_;            // scratch: for the frame's median pixel noise
+  std::vector<float> fwhms_;             // scratch: for the frame's median FWHM
   float saturation_adu_;                 // resolved settings_.saturation_adu
 };
 

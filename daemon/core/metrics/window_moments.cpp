@@ -1,0 +1,108 @@
+#include "daemon/core/metrics/window_moments.h"
+
+#include <algorithm>
+#include <cassert>
+#include <cmath>
+
+namespace slopecast::core {
+
+SpotShape spot_shape(const WindowMoments& m) {
+  SpotShape s;
+  if (!m.located) return s;
+  constexpr double kPixelVariance = 1.0 / 12.0;
+  const double vx = std::max(0.0, m.var_x - kPixelVariance);
+  const double vy = std::max(0.0, m.var_y - kPixelVariance);
+  s.fwhm_x = kFwhmPerSigma * std::sqrt(vx);
+  s.fwhm_y = kFwhmPerSigma * std::sqrt(vy);
+  // Eigenvalues of [[vx, c], [c, vy]].
+  const double mean = 0.5 * (vx + vy);
+  const double half_diff = 0.5 * (vx - vy);
+  const double r = std::sqrt(half_diff * half_diff + m.cov_xy * m.cov_xy);
+  const double major = mean + r, minor = std::max(0.0, mean - r);
+  s.ellipticity = major > 0.0 ? 1.0 - std::sqrt(minor / major) : 0.0;
+  return s;
+}
+
+MomentAccumulator::MomentAccumulator(int max_width)
+    : col_sum_(static_cast<std::size_t>(max_width)),
+      col_y_(static_cast<std::size_t>(max_width)),
+      col_yy_(static_cast<std::size_t>(max_width)),
+      col_peak_(static_cast<std::size_t>(max_width)) {}
+
+// Rows are weighted by y - (h-1)/2 (window-centred) so that the second
+// moments do not come from the difference of two large numbers.
+void MomentAccumulator::accumulate_columns(const float* data, int width, int height, int stride) {
+  assert(static_cast<std::size_t>(width) <= col_sum_.size());
+  float* __restrict cs = col_sum_.data();
+  float* __restrict cy = col_y_.data();
+  float* __restrict cyy = col_yy_.data();
+  float* __restrict cp = col_peak_.data();
+  const float yc = 0.5f * static_cast<float>(height - 1);
+  const float fy0 = -yc;
+  for (int x = 0; x < width; ++x) {
+    cs[x] = data[x];
+    cy[x] = fy0 * data[x];
+    cyy[x] = fy0 * fy0 * data[x];
+    cp[x] = data[x];
+  }
+  for (int y = 1; y < height; ++y) {
+    const float* __restrict row = data + static_cast<std::size_t>(y) * stride;
+    const float fy = static_cast<float>(y) - yc;
+    const float fyy = fy * fy;
+    for (int x = 0; x < width; ++x) {
+      const float v = row[x];
+      cs[x] += v;
+      cy[x] += fy * v;
+      cyy[x] += fyy * v;
+      cp[x] = cp[x] < v ? v : cp[x];
+    }
+  }
+}
+
+WindowMoments MomentAccumulator::reduce(int x0, int width, int height) const {
+  // Column totals are float (a window height of terms each); the short sums
+  // over columns run in double.
+  double s = 0.0, sx = 0.0, sy = 0.0, sxx = 0.0, syy = 0.0, sxy = 0.0;
+  float peak = col_peak_[x0];
+  const double xc = 0.5 * (width - 1), yc = 0.5 * (height - 1);
+  for (int x = 0; x < width; ++x) {
+    const double fx = x - xc;
+    const double c = col_sum_[x0 + x], cy = col_y_[x0 + x];
+    s += c;
+    sx += fx * c;
+    sxx += fx * fx * c;
+    sy += cy;
+    syy += col_yy_[x0 + x];
+    sxy += fx * cy;
+    peak = std::max(peak, col_peak_[x0 + x]);
+  }
+  WindowMoments m;
+  m.flux = s;
+  m.peak = peak;
+  if (!(s > 0.0)) return m;
+  const double mx = sx / s, my = sy / s;
+  const double vx = sxx / s - mx * mx, vy = syy / s - my * my, cxy = sxy / s - mx * my;
+  if (!std::isfinite(mx) || !std::isfinite(my) || !std::isfinite(vx) || !std::isfinite(vy) ||
+      !std::isfinite(cxy))
+    return m;
+  m.cx = mx + xc;
+  m.cy = my + yc;
+  m.var_x = vx;
+  m.var_y = vy;
+  m.cov_xy = cxy;
+  m.located = true;
+  return m;
+}
+
+WindowMoments MomentAccumulator::window(const WindowView& w) {
+  accumulate_columns(w.data, w.width, w.height, w.stride);
+  return reduce(0, w.width, w.height);
+}
+
+void MomentAccumulator::strip(const StripView& st, std::span<WindowMoments> out) {
+  assert(out.size() >= static_cast<std::size_t>(st.n_windows));
+  accumulate_columns(st.data, st.width(), st.height, st.stride);
+  for (int k = 0; k < st.n_windows; ++k) out[k] = reduce(k * st.window_width, st.window_width, st.height);
+}
+
+}  // namespace slopecast::core

@@ -1,0 +1,75 @@
+// Flux, peak and the first and second moments of corrected windows, and the
+// spot widths and ellipticity that follow from them.
+//
+// For a window with corrected pixels I_i at window-local positions (x_i, y_i)
+// (image_view.h convention):
+//
+//   flux = sum I_i,  cx = sum x_i I_i / flux,  cy likewise,
+//   var_x = sum (x_i - cx)^2 I_i / flux,  var_y likewise,
+//   cov_xy = sum (x_i - cx)(y_i - cy) I_i / flux.
+//
+// Every pixel counts, negative values included: with the background removed
+// the noise has zero mean and the moments are unbiased (but noisy for faint
+// spots); clipping or thresholding would bias them.
+//
+// Widths: a pixel-integrated Gaussian of rms sigma has second moment
+// sigma^2 + 1/12 per axis (the variance of a uniform pixel of width 1 adds
+// to the spot's; derived, tests/REFERENCES.md R1.2), so
+//   fwhm = 2 sqrt(2 ln 2) sqrt(var - 1/12) = 2.3548 sqrt(var - 1/12)
+// (the FWHM of a Gaussian: any optics handbook). Ellipticity is
+// 1 - b/a with a >= b the rms widths along the principal axes (the square
+// roots of the eigenvalues of the pixel-corrected covariance matrix): 0 for
+// a round spot, toward 1 for a line.
+//
+// Accumulating per column, across rows, makes every update element-wise over
+// a row, so the compiler vectorises it without reordering any floating-point
+// sum; over a whole strip row (e.g. 240 px) the vector loop also amortises
+// its set-up, which a 15-px window row does not. Each x moment follows from
+// the column sums weighted by the column's x, so one sweep gives everything.
+#pragma once
+
+#include <span>
+#include <vector>
+
+#include "daemon/core/frame/image_view.h"
+
+namespace slopecast::core {
+
+struct WindowMoments {
+  double flux = 0.0;    // sum of pixels, ADU
+  double peak = 0.0;    // brightest pixel, ADU
+  double cx = 0.0;      // centre of gravity, window-local px (0 when flux <= 0)
+  double cy = 0.0;
+  double var_x = 0.0;   // second central moments, px^2 (0 when flux <= 0)
+  double var_y = 0.0;
+  double cov_xy = 0.0;
+  bool located = false; // flux > 0 and every figure finite
+};
+
+struct SpotShape {
+  double fwhm_x = 0.0;       // px, from var_x (0 when not defined)
+  double fwhm_y = 0.0;       // px
+  double ellipticity = 0.0;  // 1 - minor/major, 0..1
+};
+
+inline constexpr double kFwhmPerSigma = 2.3548200450309493;  // 2 sqrt(2 ln 2)
+
+// Widths and ellipticity of a located window (pixel variance 1/12 removed,
+// negative results clamped to 0); all 0 when !m.located.
+SpotShape spot_shape(const WindowMoments& m);
+
+class MomentAccumulator {
+ public:
+  // max_width: the widest window or strip it will be given, px.
+  explicit MomentAccumulator(int max_width);
+  WindowMoments window(const WindowView& w);
+  // out[k] for window k of the strip. Precondition: out.size() >= n_windows.
+  void strip(const StripView& s, std::span<WindowMoments> out);
+
+ private:
+  void accumulate_columns(const float* data, int width, int height, int stride);
+  WindowMoments reduce(int x0, int width, int height) const;
+  std::vector<float> col_sum_, col_y_, col_yy_, col_peak_;  // one entry per column
+};
+
+}  // namespace slopecast::core
