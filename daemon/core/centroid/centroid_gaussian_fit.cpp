@@ -57,28 +57,36 @@ GaussianFitResult GaussianFitCentroider::fit(const WindowView& win, const Window
   GaussianFitResult out;
   const int w = win.width, h = win.height;
   noise2_ = std::max(static_cast<double>(c.noise_adu) * c.noise_adu, 1.0 / 12.0);
-  // Start at the brightest pixel, refined by its 3 x 3 CoG.
+  // Start where the 3 x 3 sum is largest (a faint spot's brightest single
+  // pixel is often noise; nine pixels of it are not), refined by the CoG of
+  // that 3 x 3 neighbourhood with negative pixels as 0.
+  auto px = [&](int i, int j) { return win.data[static_cast<std::size_t>(j) * win.stride + i]; };
   int bi = 0, bj = 0;
-  float best = win.data[0];
+  double best = -HUGE_VAL;
   for (int j = 0; j < h; ++j)
-    for (int i = 0; i < w; ++i)
-      if (win.data[static_cast<std::size_t>(j) * win.stride + i] > best) {
-        best = win.data[static_cast<std::size_t>(j) * win.stride + i];
+    for (int i = 0; i < w; ++i) {
+      double box = 0.0;
+      for (int v = std::max(0, j - 1); v <= std::min(h - 1, j + 1); ++v)
+        for (int u = std::max(0, i - 1); u <= std::min(w - 1, i + 1); ++u) box += px(u, v);
+      if (box > best) {
+        best = box;
         bi = i;
         bj = j;
       }
-  if (!(best > 0.0f)) return out;
+    }
+  if (!(best > 0.0)) return out;
   double s = 0.0, sx = 0.0, sy = 0.0;
   for (int j = std::max(0, bj - 1); j <= std::min(h - 1, bj + 1); ++j)
     for (int i = std::max(0, bi - 1); i <= std::min(w - 1, bi + 1); ++i) {
-      const double v = std::max(0.0f, win.data[static_cast<std::size_t>(j) * win.stride + i]);
+      const double v = std::max(0.0f, px(i, j));
       s += v;
       sx += v * i;
       sy += v * j;
     }
+  if (!(s > 0.0)) return out;
   const double sig0 = spot_sigma_;
   Params p{{sx / s, sy / s,
-            c.moments.flux > 0.0 ? c.moments.flux : best * 2.0 * M_PI * sig0 * sig0, sig0, sig0, 0.0}};
+            c.moments.flux > 0.0 ? c.moments.flux : best, sig0, sig0, 0.0}};
   const double sig_min = 0.05, sig_max = 2.0 * std::max(w, h);
 
   tabulate(p, w, h);

@@ -17,9 +17,10 @@
 // A 3, 1809) where photon noise dominates; adu_per_electron = 0 gives equal
 // weights. The weights follow the accepted parameters.
 //
-// Start: the brightest pixel, refined by the CoG of its 3 x 3 neighbourhood
-// (negative pixels as 0); widths spot_sigma_px; c = 0 (the window is
-// background-subtracted); A = window flux (or peak * 2 pi sigma^2 if the
+// Start: the pixel whose 3 x 3 neighbourhood holds the most light (a faint
+// spot's brightest single pixel is often noise), refined by the CoG of that
+// neighbourhood (negative pixels as 0); widths spot_sigma_px; c = 0 (the
+// window is background-subtracted); A = window flux (or the 3 x 3 sum if the
 // flux is not positive). Stop: converged once an accepted step moves the
 // spot by less than fit_tolerance_px on both axes; failed after
 // fit_max_iterations steps, when lambda exceeds 1e10 with no accepted step,

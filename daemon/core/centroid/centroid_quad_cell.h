@@ -1,6 +1,7 @@
 // Quad-cell: the window is split into left/right and top/bottom halves (a
-// 2 x 2 box is four pixels; a larger box is binned to 2 x 2, its middle
-// column or row shared half and half when the side is odd), and
+// 2 x 2 box is four pixels; a larger box is binned to 2 x 2; when the side
+// is odd its middle column or row is split where a quadratic through it and
+// its neighbours puts the light, exact for a locally quadratic profile), and
 //
 //   s_x = (I_right - I_left) / (I_right + I_left)
 //
@@ -20,6 +21,8 @@
 // at the edge of the range erfinv(+-(1 - 1e-6)) and marked failed.
 #pragma once
 
+#include <vector>
+
 #include "daemon/core/centroid/centroider.h"
 
 namespace slopecast::core {
@@ -30,12 +33,14 @@ double erfinv(double s);
 
 class QuadCellCentroider final : public Centroider {
  public:
-  explicit QuadCellCentroider(double spot_sigma_px) : sigma_(spot_sigma_px) {}
+  // max_side: the largest window side it will be given, px.
+  QuadCellCentroider(double spot_sigma_px, int max_side) : sigma_(spot_sigma_px), cols_(max_side), rows_(max_side) {}
   CentroiderKind kind() const override { return CentroiderKind::kQuadCell; }
   SpotEstimate measure(const WindowView& window, const WindowContext& context) override;
 
  private:
   double sigma_;
+  std::vector<double> cols_, rows_;  // scratch: column and row sums
 };
 
 }  // namespace slopecast::core

@@ -20,7 +20,7 @@ std::unique_ptr<Centroider> make_centroider(const CentroiderSettings& s, int p) 
     case CentroiderKind::kWeighted: return std::make_unique<WeightedCentroider>(s, p);
     case CentroiderKind::kBrightest: return std::make_unique<BrightestCentroider>(s.brightest_pixels, p * p);
     case CentroiderKind::kCorrelation: return std::make_unique<CorrelationCentroider>(s, p);
-    case CentroiderKind::kQuadCell: return std::make_unique<QuadCellCentroider>(s.spot_sigma_px);
+    case CentroiderKind::kQuadCell: return std::make_unique<QuadCellCentroider>(s.spot_sigma_px, p);
     case CentroiderKind::kGaussianFit: return std::make_unique<GaussianFitCentroider>(s, p);
   }
   return nullptr;
