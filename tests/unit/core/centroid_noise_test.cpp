@@ -116,7 +116,7 @@ TEST_CASE("CoG read noise adds sigma_e^2 sum(x_i^2) / N_ph^2", "[centroid][cog][
   // For N_s = 15, sigma_e = 3 e-, N_ph = 1000 the read term (0.038 px^2) is
   // 35x the photon term, so the difference of two runs measures it to ~3 %.
   const double sigma = 1.0, photons = 1000.0, read_e = 3.0;
-  const int n = 9;
+  const int n = 15;
   const NoiseRun photon_only = run_cog(4000, n, sigma, photons, 0.0, 7);
   const NoiseRun with_read = run_cog(4000, n, sigma, photons, read_e, 8);
   const double textbook = read_e * read_e * n * n * (n * n - 1) / (12.0 * photons * photons);
