@@ -14,51 +14,63 @@ CorrelationCentroider::CorrelationCentroider(const CentroiderSettings& s, int p)
       t_(p - 2 * s.search_px),
       p_(p),
       template_(static_cast<std::size_t>(t_) * t_),
-      scaled_(template_.size()),
       map_(static_cast<std::size_t>(2 * s_ + 1) * (2 * s_ + 1)) {
   std::vector<float> ref = s.reference == ReferenceSource::kGaussian ? gaussian_reference(p, s.spot_sigma_px)
                                                                      : s.reference_image;
   double total = 0.0;
   for (float v : ref) total += v;
+  double crop = 0.0;
   for (int j = 0; j < t_; ++j)
-    for (int i = 0; i < t_; ++i)
-      template_[static_cast<std::size_t>(j) * t_ + i] =
-          static_cast<float>(ref[static_cast<std::size_t>(j + s_) * p + (i + s_)] / total);
+    for (int i = 0; i < t_; ++i) {
+      const double v = ref[static_cast<std::size_t>(j + s_) * p + (i + s_)] / total;
+      template_[static_cast<std::size_t>(j) * t_ + i] = static_cast<float>(v);
+      crop += v;
+    }
+  template_sum_ = static_cast<float>(crop);
 }
 
 SpotEstimate CorrelationCentroider::measure(const WindowView& w, const WindowContext& c) {
   SpotEstimate e;
   if (!std::isfinite(c.moments.flux) || !(c.moments.flux > 0.0)) return e;
   assert(w.width == p_ && w.height == p_);
-  const float k = static_cast<float>(c.moments.flux);
-  for (std::size_t i = 0; i < template_.size(); ++i) scaled_[i] = k * template_[i];
   const int n = 2 * s_ + 1;
   const bool maximum = metric_ == CorrelationMetric::kCc;
   double sum = 0.0;
   int best = 0;
   for (int v = 0; v < n; ++v)
     for (int u = 0; u < n; ++u) {
-      float acc = 0.0f;
+      // Pass 1 over the overlap: sum I (and sum I T for cc).
+      float acc_i = 0.0f, acc_it = 0.0f;
       for (int j = 0; j < t_; ++j) {
         const float* live = w.data + static_cast<std::size_t>(j + v) * w.stride + u;
-        const float* tp = scaled_.data() + static_cast<std::size_t>(j) * t_;
-        float row = 0.0f;
-        switch (metric_) {
-          case CorrelationMetric::kCc:
-            for (int i = 0; i < t_; ++i) row += live[i] * template_[static_cast<std::size_t>(j) * t_ + i];
-            break;
-          case CorrelationMetric::kSdf:
-            for (int i = 0; i < t_; ++i) row += (live[i] - tp[i]) * (live[i] - tp[i]);
-            break;
-          case CorrelationMetric::kAdf:
-          case CorrelationMetric::kAdfSquared:
-            for (int i = 0; i < t_; ++i) row += std::abs(live[i] - tp[i]);
-            break;
+        const float* tp = template_.data() + static_cast<std::size_t>(j) * t_;
+        float ri = 0.0f, rit = 0.0f;
+        for (int i = 0; i < t_; ++i) {
+          ri += live[i];
+          rit += live[i] * tp[i];
         }
-        acc += row;
+        acc_i += ri;
+        acc_it += rit;
       }
-      double value = acc;
-      if (metric_ == CorrelationMetric::kAdfSquared) value *= value;
+      double value = acc_it;
+      if (!maximum) {
+        // Pass 2: the difference against the template brought to the
+        // overlap's brightness.
+        const float k = acc_i / template_sum_;
+        float acc = 0.0f;
+        for (int j = 0; j < t_; ++j) {
+          const float* live = w.data + static_cast<std::size_t>(j + v) * w.stride + u;
+          const float* tp = template_.data() + static_cast<std::size_t>(j) * t_;
+          float row = 0.0f;
+          if (metric_ == CorrelationMetric::kSdf)
+            for (int i = 0; i < t_; ++i) row += (live[i] - k * tp[i]) * (live[i] - k * tp[i]);
+          else
+            for (int i = 0; i < t_; ++i) row += std::abs(live[i] - k * tp[i]);
+          acc += row;
+        }
+        value = acc;
+        if (metric_ == CorrelationMetric::kAdfSquared) value *= value;
+      }
       const int idx = v * n + u;
       map_[idx] = value;
       sum += value;

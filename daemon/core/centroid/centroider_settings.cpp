@@ -241,6 +241,14 @@ std::string validate(const CentroiderSettings& s, int p) {
           sum += v;
         }
         if (!(sum > 0.0)) return "the reference image has no positive light (its sum is <= 0)";
+        const int t = p - 2 * s.search_px;
+        double central = 0.0;
+        for (int j = 0; j < t; ++j)
+          for (int i = 0; i < t; ++i)
+            central += s.reference_image[static_cast<std::size_t>(j + s.search_px) * p + i + s.search_px];
+        if (!(central > 0.0))
+          return fmt::format("the reference image has no positive light in its central {} x {} px (the "
+                             "template left by search_px = {})", t, t, s.search_px);
       }
       break;
     case CentroiderKind::kQuadCell:
