@@ -61,6 +61,8 @@ relative to the config file.
                                        (0..1; default 0, off)
   max_fwhm_px     = 0.0                a wider spot (FWHM, larger axis) is flagged
                                        (default 0, off)
+  min_fwhm_px     = 0.0                a narrower spot (FWHM, larger axis) is flagged
+                                       narrow: a hot pixel (default 0, off)
   max_ellipticity = 0.0                a more elongated spot (1 - minor/major) is
                                        flagged (0..1; default 0, off)
 

@@ -180,6 +180,7 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   cal.number("edge_margin_px", p.edge_margin_px, 0.0);
   cal.number("min_contrast", p.min_contrast, 0.0);
   cal.number("max_fwhm_px", p.max_fwhm_px, 0.0);
+  cal.number("min_fwhm_px", p.min_fwhm_px, 0.0);
   cal.number("max_ellipticity", p.max_ellipticity, 0.0);
   cal.reject_unknown();
   if (!cal.error.empty()) return fail(cal.error);

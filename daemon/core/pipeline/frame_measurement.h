@@ -23,6 +23,7 @@ enum SubapertureFlag : std::uint32_t {
   kFlagWide = 1u << 7,        // FWHM (larger axis) above max_fwhm_px
   kFlagElongated = 1u << 8,   // ellipticity above max_ellipticity
   kFlagMethodFailed = 1u << 9,// the method placed the spot but does not vouch for it (see SpotEstimate::failed)
+  kFlagNarrow = 1u << 10,     // FWHM (larger axis) below min_fwhm_px: a hot pixel or a cosmic ray, not a spot
 };
 
 // Bits of FrameMeasurement::health; 0 means a controller may act on the

@@ -38,7 +38,8 @@ std::string validate(const PipelineSettings& s) {
   if (!(s.min_valid_fraction >= 0.0 && s.min_valid_fraction <= 1.0))
     return fmt::format("min_valid_fraction must be 0..1, got {}", s.min_valid_fraction);
   for (auto [name, v] : {std::pair{"edge_margin_px", s.edge_margin_px}, std::pair{"min_contrast", s.min_contrast},
-                         std::pair{"max_fwhm_px", s.max_fwhm_px}, std::pair{"max_ellipticity", s.max_ellipticity}})
+                         std::pair{"max_fwhm_px", s.max_fwhm_px}, std::pair{"min_fwhm_px", s.min_fwhm_px},
+                         std::pair{"max_ellipticity", s.max_ellipticity}})
     if (!std::isfinite(v) || v < 0.0) return fmt::format("{} must be a finite number >= 0, got {}", name, v);
   if (s.min_contrast > 1.0) return fmt::format("min_contrast is a contrast 0..1, got {}", s.min_contrast);
   if (s.max_ellipticity > 1.0) return fmt::format("max_ellipticity is 0..1, got {}", s.max_ellipticity);
@@ -177,6 +178,7 @@ void Pipeline::decide(FrameMeasurement& out) {
     }
     if (finite && check_contrast && quality < s.min_contrast) flags |= kFlagLowContrast;
     if (finite && s.max_fwhm_px > 0.0 && std::max(fwhm_x, fwhm_y) > s.max_fwhm_px) flags |= kFlagWide;
+    if (finite && placed && s.min_fwhm_px > 0.0 && std::max(fwhm_x, fwhm_y) < s.min_fwhm_px) flags |= kFlagNarrow;
     if (finite && s.max_ellipticity > 0.0 && shape.ellipticity > s.max_ellipticity) flags |= kFlagElongated;
     if (check_saturation && raw_max_[i] >= saturation_adu_) flags |= kFlagSaturated;
     out.flags[i] = flags;

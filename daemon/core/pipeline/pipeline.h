@@ -68,6 +68,10 @@ struct PipelineSettings {
   double min_contrast = 0.0;
   // A spot wider than this (FWHM, larger axis) is flagged kFlagWide; 0: off.
   double max_fwhm_px = 0.0;
+  // A spot narrower than this (FWHM, larger axis) is flagged kFlagNarrow: a
+  // lone hot pixel has FWHM 0 after the pixel's own 1/12 px^2 is removed.
+  // 0: off (undersampled sensors have sub-pixel spots).
+  double min_fwhm_px = 0.0;
   // A spot more elongated than this (1 - minor/major) is flagged
   // kFlagElongated; 0: off.
   double max_ellipticity = 0.0;
