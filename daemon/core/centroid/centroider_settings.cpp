@@ -126,6 +126,18 @@ std::string read_enum(std::string_view key, const OptionValue& v, const std::arr
 
 constexpr double kInf = HUGE_VAL;
 
+// Whether a "methods" list ("all" or "a, b, c") names this method.
+bool reads(std::string_view methods, std::string_view method) {
+  if (methods == "all") return true;
+  while (!methods.empty()) {
+    const auto comma = methods.find(", ");
+    if (methods.substr(0, comma) == method) return true;
+    if (comma == std::string_view::npos) break;
+    methods.remove_prefix(comma + 2);
+  }
+  return false;
+}
+
 }  // namespace
 
 const std::span<const CentroiderOption> kCentroiderOptions(kOptions);
@@ -196,7 +208,7 @@ std::string describe(const CentroiderSettings& s) {
     if (key == "method") continue;
     const auto it = std::find_if(kOptions.begin(), kOptions.end(),
                                  [&](const CentroiderOption& o) { return o.key == key; });
-    if (it->methods.find(method) == std::string_view::npos) continue;
+    if (!reads(it->methods, method)) continue;
     if (key == "reference_file" && s.reference != ReferenceSource::kFile) continue;
     out += fmt::format("{}{} = {}", out.empty() ? "" : ", ", key, show(value));
   }

@@ -112,3 +112,61 @@ TEST_CASE("the Harrow Vale fixture config is valid once its dark exists", "[conf
   REQUIRE(std::holds_alternative<io::DaemonConfig>(r));
   CHECK(std::get<io::DaemonConfig>(r).pipeline.grid.count() == 256);
 }
+
+TEST_CASE("the [centroider] table selects the method and its parameters", "[config][centroider]") {
+  const std::string text = with(kGood, "[daemon]",
+                                "[centroider]\nmethod = \"wcog\"\nweight_sigma_px = 2.5\nweight_follows_spot = true\n"
+                                "weight_iterations = 7\nspot_sigma_px = 1\n[daemon]");
+  auto r = io::parse_daemon_config(text, "test.toml", ".");
+  REQUIRE(std::holds_alternative<io::DaemonConfig>(r));
+  const auto& s = std::get<io::DaemonConfig>(r).pipeline.centroider;
+  CHECK(s.kind == core::CentroiderKind::kWeighted);
+  CHECK(s.weight_sigma_px == 2.5);
+  CHECK(s.weight_follows_spot);
+  CHECK(s.weight_iterations == 7);
+  CHECK(s.spot_sigma_px == 1.0);
+  CHECK(s.threshold == 0.2);  // untouched keys keep their defaults
+}
+
+TEST_CASE("centroider mistakes are sentences naming the key", "[config][centroider]") {
+  auto centroider = [&](const std::string& body) { return error_of(with(kGood, "[daemon]", "[centroider]\n" + body + "\n[daemon]")); };
+  CHECK_THAT(centroider("method = \"centre\""), Catch::Contains("[centroider] method: expected one of cog, tcog"));
+  CHECK_THAT(centroider("wieght_sigma_px = 2"), Catch::Contains("unknown centroider option 'wieght_sigma_px'"));
+  CHECK_THAT(centroider("weight_sigma_px = -1"), Catch::Contains("weight_sigma_px: must be > 0"));
+  CHECK_THAT(centroider("weight_iterations = 2.5"), Catch::Contains("weight_iterations: expected a whole number"));
+  CHECK_THAT(centroider("weight_follows_spot = 1"), Catch::Contains("expected true or false"));
+  CHECK_THAT(centroider("method = \"brightest\"\nbrightest_pixels = 225"),
+             Catch::Contains("brightest_pixels 225 must be below the 225 pixels"));
+  CHECK_THAT(centroider("method = \"correlation\"\nsearch_px = 7"), Catch::Contains("search_px 7 leaves a template of 1 px"));
+  CHECK_THAT(centroider("method = \"correlation\"\ncorrelation_metric = \"sdf\"\npeak_interpolation = \"gaussian\""),
+             Catch::Contains("use it with correlation_metric = \"cc\""));
+  CHECK_THAT(centroider("method = \"tcog\"\nthreshold = 1.5"), Catch::Contains("must be below 1"));
+  CHECK_THAT(centroider("method = \"correlation\"\nreference = \"captured\""), Catch::Contains("exists only live"));
+  CHECK_THAT(centroider("method = \"correlation\"\nreference = \"file\""), Catch::Contains("needs reference_file"));
+  CHECK_THAT(centroider("threshold = [1, 2]"), Catch::Contains("expected a number, true/false or a string"));
+  CHECK_THAT(error_of(with(kGood, "min_flux_adu = 250.5", "min_flux_adu = 250.5\nmin_contrast = 2")),
+             Catch::Contains("min_contrast is a contrast 0..1"));
+}
+
+TEST_CASE("a correlation reference file is loaded relative to the config and must be one box", "[config][centroider]") {
+  const slopecast::testing::TempDir tmp;
+  const fs::path& dir = tmp.path();
+  std::vector<float> ref(15 * 15, 1.0f);
+  REQUIRE(io::write_fits_image(dir / "ref.fits", 15, 15, ref).empty());
+  REQUIRE(io::write_fits_image(dir / "wrong.fits", 12, 12, std::vector<float>(144, 1.0f)).empty());
+  const std::string text = with(kGood, "[daemon]",
+                                "[centroider]\nmethod = \"correlation\"\nreference = \"file\"\n"
+                                "reference_file = \"ref.fits\"\n[daemon]");
+  std::ofstream(dir / "slopecastd.toml") << text;
+  auto r = io::load_daemon_config(dir / "slopecastd.toml");
+  INFO((std::holds_alternative<io::ConfigError>(r) ? std::get<io::ConfigError>(r).message : ""));
+  REQUIRE(std::holds_alternative<io::DaemonConfig>(r));
+  const auto& s = std::get<io::DaemonConfig>(r).pipeline.centroider;
+  CHECK(s.reference_size == 15);
+  CHECK(s.reference_image.size() == 225u);
+  CHECK_THAT(error_of(with(text, "ref.fits", "wrong.fits"), dir), Catch::Contains("the reference image is 12 x 12 px"));
+  CHECK_THAT(error_of(with(text, "ref.fits", "gone.fits"), dir), Catch::Contains("reference_file"));
+  // Clients reading the config for its geometry do not need the image.
+  auto light = io::load_daemon_config(dir / "slopecastd.toml", io::ConfigLoad{.load_images = false});
+  CHECK(std::holds_alternative<io::DaemonConfig>(light));
+}
