@@ -27,4 +27,16 @@ std::optional<io::DaemonConfig> read_daemon_config(const char* command, const st
   return std::get<io::DaemonConfig>(std::move(r));
 }
 
+std::optional<std::string> resolve_control(const char* command, const std::string& config_path,
+                                           const std::string& control) {
+  std::string endpoint = control;
+  if (!config_path.empty()) {
+    auto c = read_daemon_config(command, config_path);
+    if (!c) return std::nullopt;
+    endpoint = c->endpoints.control;
+  }
+  if (!endpoint_ok(command, "--control", endpoint)) return std::nullopt;
+  return endpoint;
+}
+
 }  // namespace slopecast::cli

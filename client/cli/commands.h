@@ -18,6 +18,7 @@ int& exit_code();
 void add_sim_command(CLI::App& app);
 void add_watch_command(CLI::App& app);
 void add_status_command(CLI::App& app);
+void add_centroider_command(CLI::App& app);
 
 // True once SIGINT or SIGTERM has arrived (installed by main).
 bool stop_requested();
@@ -30,6 +31,12 @@ void fail(const char* command, const std::string& why);
 // The endpoint check every command shares (daemon/io/endpoint.h); on a bad
 // endpoint it fails the command with the sentence and returns false.
 bool endpoint_ok(const char* command, const char* option, const std::string& endpoint);
+
+// The control endpoint a command talks to: from --config when given
+// (read_daemon_config), else --control; checked. On error fails the command
+// and returns nullopt.
+std::optional<std::string> resolve_control(const char* command, const std::string& config_path,
+                                           const std::string& control);
 
 // A slopecastd config read for its camera, grid and endpoints (its dark is
 // not loaded: it may not exist yet). On error fails the command.

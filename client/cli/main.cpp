@@ -36,6 +36,7 @@ int main(int argc, char** argv) {
   add_sim_command(app);
   add_watch_command(app);
   add_status_command(app);
+  add_centroider_command(app);
   CLI11_PARSE(app, argc, argv);
   if (stop_requested() && exit_code() == 0) exit_code() = stopped_exit_code();
   return exit_code();

@@ -27,13 +27,15 @@ void print_status(const v1::StatusReply& s) {
   std::cout << fmt::format(
       "slopecastd {}  up {:.1f} s\n"
       "  sensor        {} x {} px {}, {} x {} subapertures of {} px, dark {}\n"
+      "  centroider    {}  (settings generation {})\n"
       "  stream        {}  last frame {} ago  from '{}'\n"
       "  frames        received {}  processed {}  rejected {}  missed {}  rate {:.1f} Hz\n"
       "  seq           last {}  repeated {}  restarts {}  connection drops {}\n"
       "  measurements  published {}  subscriptions {}\n"
       "  latency       median {:.1f} us  p99 {:.1f} us  max {:.1f} us  (received -> published, last {} frames)\n",
       s.version(), s.uptime_s(), s.width_px(), s.height_px(), s.pixel_type(), s.n_subap_x(), s.n_subap_y(),
-      s.pitch_px(), s.dark_loaded() ? "loaded" : "none", s.stream_state_name(),
+      s.pitch_px(), s.dark_loaded() ? "loaded" : "none", s.centroider().summary(),
+      s.centroider().settings_generation(), s.stream_state_name(),
       s.has_last_seq() ? fmt::format("{:.2f} s", s.last_frame_age_s()) : std::string("-"), s.last_source_id(),
       s.frames_received(), s.frames_processed(), s.frames_rejected(), s.frames_missed(), s.frame_rate_hz(),
       s.has_last_seq() ? std::to_string(s.last_seq()) : std::string("-"), s.frames_repeated(), s.seq_restarts(),
@@ -47,14 +49,10 @@ void print_status(const v1::StatusReply& s) {
 }
 
 void run_status(StatusOptions o) {
-  if (!o.config.empty()) {
-    auto c = read_daemon_config(kCmd, o.config);
-    if (!c) return;
-    o.control = c->endpoints.control;
-  }
-  if (!endpoint_ok(kCmd, "--control", o.control)) return;
+  const auto control_endpoint = resolve_control(kCmd, o.config, o.control);
+  if (!control_endpoint) return;
   zmq::context_t ctx(1);
-  client::ControlClient control(ctx, o.control);
+  client::ControlClient control(ctx, *control_endpoint);
   const auto timeout = std::chrono::milliseconds(static_cast<long>(o.timeout_s * 1000));
   auto result = o.wait_s > 0 ? control.wait_ready(std::chrono::milliseconds(static_cast<long>(o.wait_s * 1000)))
                              : control.status(timeout);

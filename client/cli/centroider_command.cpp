@@ -1,0 +1,129 @@
+// `slopecast centroider`: show or change the daemon's centroider while it
+// runs. Without options it shows the settings in force; --method and --set
+// change them (checked as a whole by the daemon and applied between two
+// frames, or refused with the running settings unchanged);
+// --capture-reference takes a correlation reference from the live frames.
+#include <charconv>
+#include <iostream>
+#include <memory>
+
+#include <fmt/format.h>
+#include <google/protobuf/util/json_util.h>
+#include <zmq.hpp>
+
+#include "client/cli/commands.h"
+#include "client/lib/control_client.h"
+#include "daemon/core/centroid/centroider_settings.h"
+#include "daemon/io/wire_codec.h"
+
+namespace slopecast::cli {
+
+namespace {
+
+constexpr const char* kCmd = "centroider";
+
+struct CentroiderOptions {
+  std::string config;
+  std::string control = io::kDefaultControlEndpoint;
+  std::string method;
+  std::vector<std::string> set;
+  bool capture_reference = false;
+  bool json = false;
+  double timeout_s = 2.0;
+};
+
+// "key=value": true/false are flags, a whole-string number is a number,
+// anything else is text (quotes optional).
+std::optional<std::pair<std::string, core::OptionValue>> parse_assignment(const std::string& text) {
+  const auto eq = text.find('=');
+  if (eq == std::string::npos || eq == 0) return std::nullopt;
+  std::string key = text.substr(0, eq), value = text.substr(eq + 1);
+  if (value == "true" || value == "false") return std::pair{key, core::OptionValue(value == "true")};
+  double number = 0.0;
+  const auto [end, ec] = std::from_chars(value.data(), value.data() + value.size(), number);
+  if (ec == std::errc() && end == value.data() + value.size() && !value.empty())
+    return std::pair{key, core::OptionValue(number)};
+  if (value.size() >= 2 && value.front() == '"' && value.back() == '"') value = value.substr(1, value.size() - 2);
+  return std::pair{key, core::OptionValue(value)};
+}
+
+std::string show(const v1::CentroiderOption& o) {
+  switch (o.value_case()) {
+    case v1::CentroiderOption::kNumber: return fmt::format("{}", o.number());
+    case v1::CentroiderOption::kFlag: return o.flag() ? "true" : "false";
+    case v1::CentroiderOption::kText: return fmt::format("\"{}\"", o.text());
+    case v1::CentroiderOption::VALUE_NOT_SET: break;
+  }
+  return "-";
+}
+
+void run_centroider(CentroiderOptions o) {
+  const auto control_endpoint = resolve_control(kCmd, o.config, o.control);
+  if (!control_endpoint) return;
+  v1::ControlRequest request;
+  auto* set = request.mutable_set_centroider();
+  if (!o.method.empty()) io::to_wire("method", core::OptionValue(o.method), *set->add_options());
+  for (const std::string& a : o.set) {
+    const auto kv = parse_assignment(a);
+    if (!kv) return fail(kCmd, fmt::format("--set '{}': expected key=value, e.g. --set weight_sigma_px=2", a));
+    io::to_wire(kv->first, kv->second, *set->add_options());
+  }
+  set->set_capture_reference(o.capture_reference);
+  zmq::context_t ctx(1);
+  client::ControlClient control(ctx, *control_endpoint);
+  auto result = control.call(request, std::chrono::milliseconds(static_cast<long>(o.timeout_s * 1000)));
+  if (auto* err = std::get_if<std::string>(&result)) {
+    if (stop_requested()) return;
+    std::cerr << "slopecast centroider: " << *err << "\n";
+    exit_code() = 1;
+    return;
+  }
+  const auto& reply = std::get<v1::ControlReply>(result);
+  if (!reply.ok()) {
+    std::cerr << "slopecast centroider: refused: " << reply.error() << " (the running settings are unchanged)\n";
+    exit_code() = 1;
+    return;
+  }
+  const v1::CentroiderReply& c = reply.centroider();
+  if (o.json) {
+    std::string text;
+    google::protobuf::util::JsonPrintOptions options;
+    options.add_whitespace = true;
+    options.always_print_primitive_fields = true;
+    options.preserve_proto_field_names = true;
+    if (!google::protobuf::util::MessageToJsonString(c, &text, options).ok()) {
+      std::cerr << "slopecast centroider: the reply could not be written as JSON\n";
+      exit_code() = 1;
+      return;
+    }
+    std::cout << text;
+    return;
+  }
+  std::cout << fmt::format("{} {}\n  settings generation {}{}\n", c.changed() ? "now" : "in force:", c.summary(),
+                           c.settings_generation(), c.changed() ? " (measurements from the next frame on)" : "");
+  std::cout << "  every option:\n";
+  for (const auto& opt : c.options()) std::cout << fmt::format("    {:<22} {}\n", opt.key(), show(opt));
+}
+
+}  // namespace
+
+void add_centroider_command(CLI::App& app) {
+  auto opts = std::make_shared<CentroiderOptions>();
+  std::string keys;
+  for (const auto& opt : core::kCentroiderOptions) keys += fmt::format("\n  {:<22} {}", opt.key, opt.help);
+  auto* cmd = app.add_subcommand("centroider", "Show or change slopecastd's centroider while it runs");
+  cmd->footer("Options for --set (the keys of the daemon config's [centroider] table):" + keys);
+  auto* config = cmd->add_option("--config", opts->config, "Take the control endpoint from this slopecastd config file")
+                     ->check(CLI::ExistingFile);
+  cmd->add_option("--control", opts->control, "Daemon control endpoint")->capture_default_str()->excludes(config);
+  cmd->add_option("--method", opts->method, "Switch to this method (the tuned options of the others are kept)");
+  cmd->add_option("--set", opts->set, "key=value: change one option (repeat for several); see below");
+  cmd->add_flag("--capture-reference", opts->capture_reference,
+                "Take the mean of the valid spots of the last measured frame as the correlation reference");
+  cmd->add_flag("--json", opts->json, "Print the reply as JSON (field names as in control.proto)");
+  cmd->add_option("--timeout-s", opts->timeout_s, "Seconds to wait for the reply")
+      ->capture_default_str()->check(CLI::PositiveNumber);
+  cmd->callback([opts] { run_centroider(*opts); });
+}
+
+}  // namespace slopecast::cli
