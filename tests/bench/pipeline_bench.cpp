@@ -1,15 +1,19 @@
-// How close the per-frame computation runs to the memory floor.
+// How close the per-frame computation runs to the memory floor, for every
+// centroider.
 //
-// For each sensor size the benchmark times (a) memcpy of the frame's bytes —
-// the physical floor for anything that reads every pixel once — (b)
-// Pipeline::measure (dark subtraction + CoG + slopes), and (c) measure plus
-// building and serialising the measurement protobuf, as the daemon does per
-// frame. It prints each as a ratio to memcpy: ratios, not absolute times,
-// are what compare across shared machines.
+// For each sensor size the benchmark times two floors -- memcpy of the
+// frame's bytes, and a plain vectorised sum over its pixels, the least work
+// that reads every pixel once -- then Pipeline::measure (dark subtraction,
+// border background, moments, the centroider, flags and slopes) with each
+// method at its default settings, and, for the CoG, measure plus building
+// and serialising the measurement protobuf as the daemon does per frame. It
+// prints each as a ratio to both floors from the same run: ratios, not
+// absolute times, are what compare across shared machines.
 //
 // Run: build/tests/bench/pipeline_bench --benchmark_repetitions=5
 //          --benchmark_report_aggregates_only=true   (ratios of medians)
 #include <benchmark/benchmark.h>
+#include <fmt/format.h>
 
 #include <cstring>
 #include <iostream>
@@ -68,8 +72,23 @@ void BM_memcpy(benchmark::State& state, Sensor s) {
   state.SetBytesProcessed(state.iterations() * f.frame.size() * 2);
 }
 
-void BM_measure(benchmark::State& state, Sensor s) {
+// The floor for pixel work: sum every pixel of the frame (the compiler
+// vectorises this loop).
+void BM_sum(benchmark::State& state, Sensor s) {
   const Fixture f = make_fixture(s);
+  for (auto _ : state) {
+    std::uint64_t total = 0;
+    for (std::uint16_t v : f.frame) total += v;
+    benchmark::DoNotOptimize(total);
+  }
+  state.SetBytesProcessed(state.iterations() * f.frame.size() * 2);
+}
+
+void BM_measure(benchmark::State& state, Sensor s, core::CentroiderKind kind) {
+  Fixture f = make_fixture(s);
+  f.settings.centroider.kind = kind;
+  f.settings.centroider.spot_sigma_px = 1.0;  // the simulator's default spot
+  f.settings.centroider.brightest_pixels = std::min(20, s.pitch * s.pitch - 1);
   core::Pipeline p(f.settings);
   auto m = p.make_measurement();
   for (auto _ : state) {
@@ -124,19 +143,35 @@ class RatioReporter : public benchmark::ConsoleReporter {
 int main(int argc, char** argv) {
   for (const Sensor& s : kSensors) {
     benchmark::RegisterBenchmark((std::string("memcpy/") + s.name).c_str(), BM_memcpy, s);
-    benchmark::RegisterBenchmark((std::string("measure/") + s.name).c_str(), BM_measure, s);
-    benchmark::RegisterBenchmark((std::string("measure+encode/") + s.name).c_str(), BM_measure_encode, s);
+    benchmark::RegisterBenchmark((std::string("sum/") + s.name).c_str(), BM_sum, s);
+    for (core::CentroiderKind k : core::kAllCentroiderKinds)
+      benchmark::RegisterBenchmark(fmt::format("measure/{}/{}", core::centroider_name(k), s.name).c_str(),
+                                   BM_measure, s, k);
+    benchmark::RegisterBenchmark((std::string("measure+encode/cog/") + s.name).c_str(), BM_measure_encode, s);
   }
   benchmark::Initialize(&argc, argv);
   RatioReporter reporter;
   benchmark::RunSpecifiedBenchmarks(&reporter);
-  std::cout << "\nratio to memcpy of the same u16 frame (1.0 = the memory floor):\n";
-  for (const Sensor& s : kSensors) {
-    const double floor = reporter.ns[std::string("memcpy/") + s.name];
-    if (floor <= 0) continue;
-    std::cout << "  " << s.name << "  measure " << reporter.ns[std::string("measure/") + s.name] / floor
-              << "x  measure+encode " << reporter.ns[std::string("measure+encode/") + s.name] / floor << "x\n";
-  }
+  // One table: per method and sensor, time per frame as a ratio to memcpy
+  // and to the plain sum of the same frame (1.0 = the floor).
+  std::cout << "\nper-frame time as a ratio to memcpy / to a plain sum of the same u16 frame:\n";
+  std::cout << fmt::format("  {:<20}", "method");
+  for (const Sensor& s : kSensors) std::cout << fmt::format(" {:>22}", s.name);
+  std::cout << "\n";
+  auto row = [&](const std::string& label, const std::string& prefix) {
+    std::cout << fmt::format("  {:<20}", label);
+    for (const Sensor& s : kSensors) {
+      const double copy = reporter.ns[std::string("memcpy/") + s.name], sum = reporter.ns[std::string("sum/") + s.name];
+      const double t = reporter.ns[prefix + s.name];
+      std::cout << (copy > 0 && sum > 0 && t > 0 ? fmt::format(" {:>10.1f}x / {:>7.1f}x", t / copy, t / sum)
+                                                 : fmt::format(" {:>22}", "-"));
+    }
+    std::cout << "\n";
+  };
+  row("sum (floor)", "sum/");
+  for (core::CentroiderKind k : core::kAllCentroiderKinds)
+    row(std::string(core::centroider_name(k)), fmt::format("measure/{}/", core::centroider_name(k)));
+  row("cog + encode", "measure+encode/cog/");
   benchmark::Shutdown();
   return 0;
 }
