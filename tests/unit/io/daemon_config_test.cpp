@@ -170,3 +170,13 @@ TEST_CASE("a correlation reference file is loaded relative to the config and mus
   auto light = io::load_daemon_config(dir / "slopecastd.toml", io::ConfigLoad{.load_images = false});
   CHECK(std::holds_alternative<io::DaemonConfig>(light));
 }
+
+TEST_CASE("the Harrow Vale fixture documents every centroider key", "[config][centroider]") {
+  std::ifstream in(fs::path(SLOPECAST_SOURCE_DIR) / "fixtures/harrow_vale/slopecastd.toml");
+  REQUIRE(in);
+  const std::string text{std::istreambuf_iterator<char>(in), {}};
+  for (const auto& o : core::kCentroiderOptions) {
+    INFO("key " << o.key);
+    CHECK(text.find(std::string(o.key) + " =") != std::string::npos);
+  }
+}
