@@ -81,6 +81,7 @@ void encode_measurement(const core::FrameMeasurement& m, const MeasurementStamp&
   copy_into(msg.mutable_fwhm_y_px(), m.fwhm_y_px);
   copy_into(msg.mutable_ellipticity(), m.ellipticity);
   copy_into(msg.mutable_quality(), m.quality);
+  copy_into(msg.mutable_saturated_pixels(), m.saturated_pixels);
   msg.set_total_flux_adu(m.total_flux_adu);
   msg.set_median_fwhm_px(m.median_fwhm_px);
   msg.set_settings_generation(s.settings_generation);

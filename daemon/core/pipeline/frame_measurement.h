@@ -60,6 +60,9 @@ struct FrameMeasurement {
   // contrast, Gaussian-fit reduced chi^2; 0 for the others.
   std::vector<float> quality;
   std::vector<std::uint32_t> flags;  // SubapertureFlag bits
+  // Raw pixels of the box at or above the saturation level; 0 when the
+  // check is off (f32 without saturation_adu).
+  std::vector<std::uint32_t> saturated_pixels;
 
   int n_valid = 0;
   int n_saturated = 0;           // subapertures with kFlagSaturated
@@ -75,6 +78,7 @@ struct FrameMeasurement {
                     &fwhm_y_px, &ellipticity, &quality})
       v->assign(n, 0.0f);
     flags.assign(n, kFlagNone);
+    saturated_pixels.assign(n, 0);
   }
   int size() const { return static_cast<int>(flags.size()); }
 };

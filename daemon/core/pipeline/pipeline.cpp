@@ -66,6 +66,8 @@ Pipeline::Pipeline(PipelineSettings settings)
       moments_(settings_.grid.n_subap_x * settings_.grid.pitch_px),
       scratch_moments_(static_cast<std::size_t>(settings_.grid.n_subap_x)),
       raw_max_(static_cast<std::size_t>(settings_.grid.count())),
+      saturated_pixels_(static_cast<std::size_t>(settings_.grid.count())),
+      raw_box_(static_cast<std::size_t>(settings_.grid.pitch_px) * settings_.grid.pitch_px),
       sigmas_(static_cast<std::size_t>(settings_.grid.count())),
       fwhms_(static_cast<std::size_t>(settings_.grid.count())),
       saturation_adu_(static_cast<float>(settings_.saturation_adu.value_or(full_scale_adu(settings_.camera.format)))) {
@@ -100,6 +102,14 @@ void Pipeline::measure(const ImageView& image, FrameMeasurement& out) {
       if (check_saturation) {
         const float* cm = column_max_.data() + ix * p;
         raw_max_[row0 + ix] = *std::max_element(cm, cm + p);
+        saturated_pixels_[row0 + ix] = 0;
+        // Rare: only a box that reached the level is read again, raw, to
+        // count its saturated pixels.
+        if (raw_max_[row0 + ix] >= saturation_adu_) {
+          correct_box(image, {}, Box{g.box_x0(ix), g.box_y0(iy), p, p}, raw_box_);
+          saturated_pixels_[row0 + ix] = static_cast<std::uint32_t>(
+              std::count_if(raw_box_.begin(), raw_box_.end(), [&](float v) { return v >= saturation_adu_; }));
+        }
       }
     }
     moments_.strip(strip, scratch_moments_);
@@ -181,6 +191,7 @@ void Pipeline::decide(FrameMeasurement& out) {
     if (finite && placed && s.min_fwhm_px > 0.0 && std::max(fwhm_x, fwhm_y) < s.min_fwhm_px) flags |= kFlagNarrow;
     if (finite && s.max_ellipticity > 0.0 && shape.ellipticity > s.max_ellipticity) flags |= kFlagElongated;
     if (check_saturation && raw_max_[i] >= saturation_adu_) flags |= kFlagSaturated;
+    out.saturated_pixels[i] = check_saturation ? saturated_pixels_[i] : 0;
     out.flags[i] = flags;
     any_non_finite |= !finite;
     if (finite) total_flux += m.flux;

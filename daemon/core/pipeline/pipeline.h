@@ -124,6 +124,8 @@ class Pipeline {
   MomentAccumulator moments_;
   std::vector<WindowMoments> scratch_moments_;  // scratch: one per box of a strip
   std::vector<float> raw_max_;           // scratch: raw maximum per box of the grid
+  std::vector<std::uint32_t> saturated_pixels_;  // scratch: per box of the grid
+  std::vector<float> raw_box_;           // scratch: one box's raw pixels, to count saturated ones
   std::vector<float> sigmas_;            // scratch: for the frame's median pixel noise
   std::vector<float> fwhms_;             // scratch: for the frame's median FWHM
   float saturation_adu_;                 // resolved settings_.saturation_adu

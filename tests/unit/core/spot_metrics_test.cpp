@@ -136,6 +136,12 @@ TEST_CASE("background, width and edge flags on crafted windows", "[metrics]") {
     const auto m = run(s, elliptical(7, 7, 1.5, 1.5, 2e4, 0.0));  // peak 1400
     CHECK(m.flags[0] == core::kFlagSaturated);
     CHECK(m.n_saturated == 1);
+    // Pixels of a 2e4-photon Gaussian of 1.5 px rms at or above 1000: a
+    // pixel-wide slice through the centre holds 2 Phi(1/3) - 1 = 0.2611 of
+    // the light along an axis, the next one Phi(1) - Phi(1/3) = 0.2107
+    // (derived), so the peak pixel has 2e4 * 0.2611^2 = 1363 ADU, the four
+    // beside it 1100, the diagonals 888.
+    CHECK(m.saturated_pixels[0] == 5u);
     CHECK((m.health & core::kHealthSaturated) != 0);
   }
   SECTION("correlation peak contrast below min_contrast is flagged") {

@@ -26,7 +26,7 @@ void operator delete(void* p, std::size_t) noexcept { std::free(p); }
 
 using namespace slopecast;
 
-TEST_CASE("checking, measuring and encoding a frame allocate nothing after set-up", "[pipeline][wire][hot_path]") {
+TEST_CASE("checking, measuring and encoding a frame allocate nothing after set-up, with every centroider", "[pipeline][wire][hot_path]") {
   core::PipelineSettings s;
   s.camera = {240, 240, core::PixelFormat::kU16};
   s.grid = {16, 16, 15, 0, 0};
@@ -50,6 +50,12 @@ TEST_CASE("checking, measuring and encoding a frame allocate nothing after set-u
   const std::span<const std::byte> header_span{reinterpret_cast<const std::byte*>(header_bytes.data()),
                                                header_bytes.size()};
 
+  for (core::CentroiderKind kind : core::kAllCentroiderKinds) {
+  INFO("centroider " << core::centroider_name(kind));
+  s.centroider.kind = kind;
+  s.centroider.spot_sigma_px = field.spot_sigma_px;
+  s.centroider.search_px = 3;  // spots move up to 1.5 px
+  s.saturation_adu = 200.0;    // some boxes saturate: their pixels are counted too
   core::Pipeline pipeline(s);
   core::FrameMeasurement m = pipeline.make_measurement();
   v1::FrameHeader scratch;
@@ -69,10 +75,11 @@ TEST_CASE("checking, measuring and encoding a frame allocate nothing after set-u
     msg.SerializeWithCachedSizesToArray(out.data());
   };
   one_frame(0);  // the first frame may size the reused protobuf messages
-  REQUIRE(m.n_valid == 256);
+  REQUIRE(m.n_saturated > 0);
 
   const long before = g_allocations.load();
-  for (std::uint64_t seq = 1; seq <= 200; ++seq) one_frame(seq);
+  for (std::uint64_t seq = 1; seq <= 20; ++seq) one_frame(seq);
   const long during = g_allocations.load() - before;
   CHECK(during == 0);
+  }
 }
