@@ -8,7 +8,6 @@
 #include <memory>
 
 #include <fmt/format.h>
-#include <google/protobuf/util/json_util.h>
 #include <zmq.hpp>
 
 #include "client/cli/commands.h"
@@ -85,20 +84,7 @@ void run_centroider(CentroiderOptions o) {
     return;
   }
   const v1::CentroiderReply& c = reply.centroider();
-  if (o.json) {
-    std::string text;
-    google::protobuf::util::JsonPrintOptions options;
-    options.add_whitespace = true;
-    options.always_print_primitive_fields = true;
-    options.preserve_proto_field_names = true;
-    if (!google::protobuf::util::MessageToJsonString(c, &text, options).ok()) {
-      std::cerr << "slopecast centroider: the reply could not be written as JSON\n";
-      exit_code() = 1;
-      return;
-    }
-    std::cout << text;
-    return;
-  }
+  if (o.json) return print_json(kCmd, c);
   std::cout << fmt::format("{} {}\n  settings generation {}{}\n", c.changed() ? "now" : "in force:", c.summary(),
                            c.settings_generation(), c.changed() ? " (measurements from the next frame on)" : "");
   std::cout << "  every option:\n";

@@ -1,5 +1,7 @@
 #include <iostream>
 
+#include <google/protobuf/util/json_util.h>
+
 #include "client/cli/commands.h"
 #include "daemon/io/endpoint.h"
 
@@ -25,6 +27,20 @@ std::optional<io::DaemonConfig> read_daemon_config(const char* command, const st
     return std::nullopt;
   }
   return std::get<io::DaemonConfig>(std::move(r));
+}
+
+void print_json(const char* command, const google::protobuf::Message& message) {
+  std::string text;
+  google::protobuf::util::JsonPrintOptions options;
+  options.add_whitespace = true;
+  options.always_print_primitive_fields = true;
+  options.preserve_proto_field_names = true;
+  if (!google::protobuf::util::MessageToJsonString(message, &text, options).ok()) {
+    std::cerr << "slopecast " << command << ": the reply could not be written as JSON\n";
+    exit_code() = 1;
+    return;
+  }
+  std::cout << text;
 }
 
 std::optional<std::string> resolve_control(const char* command, const std::string& config_path,

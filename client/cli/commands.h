@@ -7,6 +7,7 @@
 #include <string>
 
 #include <CLI/CLI.hpp>
+#include <google/protobuf/message.h>
 
 #include "daemon/io/daemon_config.h"
 
@@ -37,6 +38,10 @@ bool endpoint_ok(const char* command, const char* option, const std::string& end
 // and returns nullopt.
 std::optional<std::string> resolve_control(const char* command, const std::string& config_path,
                                            const std::string& control);
+
+// Prints a reply as JSON (protobuf's JSON mapping, field names as in the
+// .proto, every field shown) for scripts; on failure fails the command.
+void print_json(const char* command, const google::protobuf::Message& message);
 
 // A slopecastd config read for its camera, grid and endpoints (its dark is
 // not loaded: it may not exist yet). On error fails the command.

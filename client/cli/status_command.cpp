@@ -3,7 +3,6 @@
 #include <memory>
 
 #include <fmt/format.h>
-#include <google/protobuf/util/json_util.h>
 #include <zmq.hpp>
 
 #include "client/cli/commands.h"
@@ -68,20 +67,7 @@ void run_status(StatusOptions o) {
     exit_code() = 1;
     return;
   }
-  if (o.json) {
-    std::string text;
-    google::protobuf::util::JsonPrintOptions options;
-    options.add_whitespace = true;
-    options.always_print_primitive_fields = true;
-    options.preserve_proto_field_names = true;
-    if (!google::protobuf::util::MessageToJsonString(reply.status(), &text, options).ok()) {
-      std::cerr << "slopecast status: the reply could not be written as JSON\n";
-      exit_code() = 1;
-      return;
-    }
-    std::cout << text;
-    return;
-  }
+  if (o.json) return print_json(kCmd, reply.status());
   print_status(reply.status());
 }
 
