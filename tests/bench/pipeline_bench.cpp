@@ -84,9 +84,10 @@ void BM_sum(benchmark::State& state, Sensor s) {
   state.SetBytesProcessed(state.iterations() * f.frame.size() * 2);
 }
 
-void BM_measure(benchmark::State& state, Sensor s, core::CentroiderKind kind) {
+void BM_measure(benchmark::State& state, Sensor s, core::CentroiderKind kind, bool border) {
   Fixture f = make_fixture(s);
   f.settings.centroider.kind = kind;
+  if (!border) f.settings.background = core::BackgroundMode::kNone;
   f.settings.centroider.spot_sigma_px = 1.0;  // the simulator's default spot
   f.settings.centroider.brightest_pixels = std::min(20, s.pitch * s.pitch - 1);
   core::Pipeline p(f.settings);
@@ -146,7 +147,9 @@ int main(int argc, char** argv) {
     benchmark::RegisterBenchmark((std::string("sum/") + s.name).c_str(), BM_sum, s);
     for (core::CentroiderKind k : core::kAllCentroiderKinds)
       benchmark::RegisterBenchmark(fmt::format("measure/{}/{}", core::centroider_name(k), s.name).c_str(),
-                                   BM_measure, s, k);
+                                   BM_measure, s, k, true);
+    benchmark::RegisterBenchmark(fmt::format("measure/cog-nobg/{}", s.name).c_str(), BM_measure, s,
+                                 core::CentroiderKind::kCog, false);
     benchmark::RegisterBenchmark((std::string("measure+encode/cog/") + s.name).c_str(), BM_measure_encode, s);
   }
   benchmark::Initialize(&argc, argv);
@@ -171,6 +174,7 @@ int main(int argc, char** argv) {
   row("sum (floor)", "sum/");
   for (core::CentroiderKind k : core::kAllCentroiderKinds)
     row(std::string(core::centroider_name(k)), fmt::format("measure/{}/", core::centroider_name(k)));
+  row("cog, no background", "measure/cog-nobg/");
   row("cog + encode", "measure+encode/cog/");
   benchmark::Shutdown();
   return 0;

@@ -6,8 +6,18 @@ namespace slopecast::core {
 
 SpotEstimate ThresholdedCentroider::measure(const WindowView& w, const WindowContext& c) {
   SpotEstimate e;
-  if (!std::isfinite(c.moments.flux) || !(c.moments.peak > 0.0)) return e;
-  const float t = static_cast<float>(mode_ == ThresholdMode::kRelative ? threshold_ * c.moments.peak : threshold_);
+  if (!std::isfinite(c.moments.flux)) return e;
+  float t = static_cast<float>(threshold_);
+  if (mode_ == ThresholdMode::kRelative) {
+    // The corrected window's peak (the context's peak is the raw one).
+    float peak = w.data[0];
+    for (int y = 0; y < w.height; ++y) {
+      const float* row = w.data + static_cast<std::size_t>(y) * w.stride;
+      for (int x = 0; x < w.width; ++x) peak = row[x] > peak ? row[x] : peak;
+    }
+    if (!(peak > 0.0f)) return e;
+    t = static_cast<float>(threshold_) * peak;
+  }
   double s = 0.0, sx = 0.0, sy = 0.0;
   for (int y = 0; y < w.height; ++y) {
     const float* row = w.data + static_cast<std::size_t>(y) * w.stride;

@@ -6,7 +6,7 @@
 // Tokovinin, Nicolle, Michau & Rousset 2006, MNRAS 371, 323; the
 // minimum-variance threshold is studied by Arines & Ares 2002, Opt. Lett. 27,
 // 497). T is either absolute -- ADU above the subtracted background -- or
-// relative, a fraction of the window's peak. Pixels of background noise
+// relative, a fraction of the corrected window's peak. Pixels of background noise
 // below T no longer add read noise with the large lever arm of the window
 // edge, which is what makes TCoG beat CoG with faint spots; subtracting T
 // keeps the estimate continuous as pixels cross it.

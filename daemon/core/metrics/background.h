@@ -51,7 +51,6 @@ bool parse_background_mode(const char* name, BackgroundMode& out);
 inline constexpr int kMinPitchForBorderBackground = 5;
 
 struct BorderStats {
-  float median_adu = 0.0f;     // median of the border ring
   float level_adu = 0.0f;      // mean of the ring pixels kept: the background
   float sigma_adu = 0.0f;      // rms of the pixels kept, floored at 1/sqrt(12)
   int n_border = 0;            // pixels in the ring
@@ -62,11 +61,20 @@ struct BorderStats {
 // Number of border pixels of a w x h window (the whole window when either
 // side is below 3).
 int border_pixel_count(int width, int height);
+// Floats of scratch border_stats() needs for a w x h window.
+inline int border_scratch_size(int width, int height) { return 2 * border_pixel_count(width, height) + 8; }
 
 // Level and noise of the window's border ring, as above. scratch must hold at
-// least 2 * border_pixel_count(w, h) floats; it is overwritten.
+// least border_scratch_size(w, h) floats; it is overwritten.
 // Allocation-free.
 BorderStats border_stats(const WindowView& window, std::span<float> scratch);
+
+// The same from the raw frame: the ring of box `box` of the image, minus the
+// dark where given (row-major, image.width wide), without correcting the
+// rest of the box. Identical to border_stats() of the corrected window.
+struct Box;
+BorderStats border_stats_raw(const ImageView& image, std::span<const float> dark, const Box& box,
+                             std::span<float> scratch);
 
 // Subtracts value from every pixel of the window (the window's memory is
 // writable scratch in the pipeline, hence the cast-free float* argument).

@@ -3,6 +3,9 @@
 #include <algorithm>
 #include <cassert>
 #include <cmath>
+#include <cstdint>
+
+#include "daemon/core/frame/raw_columns.h"
 
 namespace slopecast::core {
 
@@ -21,6 +24,64 @@ SpotShape spot_shape(const WindowMoments& m) {
   const double major = mean + r, minor = std::max(0.0, mean - r);
   s.ellipticity = major > 0.0 ? 1.0 - std::sqrt(minor / major) : 0.0;
   return s;
+}
+
+FoldedDark fold_dark(std::span<const float> dark, int image_width, int x0, int y0, int w, int h) {
+  FoldedDark d;
+  if (dark.empty()) return d;
+  for (int y = 0; y < h; ++y)
+    for (int x = 0; x < w; ++x) {
+      const double v = dark[static_cast<std::size_t>(y0 + y) * image_width + x0 + x];
+      d.d00 += v;
+      d.d10 += x * v;
+      d.d01 += y * v;
+      d.d20 += static_cast<double>(x) * x * v;
+      d.d02 += static_cast<double>(y) * y * v;
+      d.d11 += static_cast<double>(x) * y * v;
+    }
+  return d;
+}
+
+WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level) {
+  // Integer sums over the window's columns (exact: each term < 2^32, at
+  // most a few hundred of them).
+  std::int64_t r00 = 0, r10 = 0, r20 = 0, r01 = 0, r11 = 0, r02 = 0;
+  std::uint32_t peak = 0;
+  const std::int64_t hh = h;
+  for (int x = 0; x < w; ++x) {
+    const std::int64_t s = cols.s[x0 + x], t = cols.t[x0 + x], u = cols.u[x0 + x];
+    const std::int64_t sy = hh * s - t;                          // sum y v
+    const std::int64_t syy = hh * hh * s - 2 * hh * t + 2 * u - t;  // sum y^2 v
+    r00 += s;
+    r10 += x * s;
+    r20 += static_cast<std::int64_t>(x) * x * s;
+    r01 += sy;
+    r11 += x * sy;
+    r02 += syy;
+    peak = peak > cols.max[x0 + x] ? peak : cols.max[x0 + x];
+  }
+  // The level's sums over the box geometry.
+  const double sx = 0.5 * w * (w - 1.0), sy = 0.5 * h * (h - 1.0);
+  const double sxx = (w - 1.0) * w * (2.0 * w - 1.0) / 6.0, syy = (h - 1.0) * h * (2.0 * h - 1.0) / 6.0;
+  const double m00 = static_cast<double>(r00) - dark.d00 - level * w * h;
+  const double m10 = static_cast<double>(r10) - dark.d10 - level * h * sx;
+  const double m01 = static_cast<double>(r01) - dark.d01 - level * w * sy;
+  const double m20 = static_cast<double>(r20) - dark.d20 - level * h * sxx;
+  const double m02 = static_cast<double>(r02) - dark.d02 - level * w * syy;
+  const double m11 = static_cast<double>(r11) - dark.d11 - level * sx * sy;
+  WindowMoments m;
+  m.flux = m00;
+  m.peak = peak;
+  if (!(m00 > 0.0)) return m;
+  const double cx = m10 / m00, cy = m01 / m00;
+  m.cx = cx;
+  m.cy = cy;
+  m.var_x = m20 / m00 - cx * cx;
+  m.var_y = m02 / m00 - cy * cy;
+  m.cov_xy = m11 / m00 - cx * cy;
+  m.located = std::isfinite(cx) && std::isfinite(cy) && std::isfinite(m.var_x) && std::isfinite(m.var_y);
+  if (!m.located) m.cx = m.cy = m.var_x = m.var_y = m.cov_xy = 0.0;
+  return m;
 }
 
 MomentAccumulator::MomentAccumulator(int max_width)

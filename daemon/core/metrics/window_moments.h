@@ -37,7 +37,7 @@ namespace slopecast::core {
 
 struct WindowMoments {
   double flux = 0.0;    // sum of pixels, ADU
-  double peak = 0.0;    // brightest pixel, ADU
+  double peak = 0.0;    // brightest pixel summed, ADU (in the pipeline: the raw maximum)
   double cx = 0.0;      // centre of gravity, window-local px (0 when flux <= 0)
   double cy = 0.0;
   double var_x = 0.0;   // second central moments, px^2 (0 when flux <= 0)
@@ -57,6 +57,25 @@ inline constexpr double kFwhmPerSigma = 2.3548200450309493;  // 2 sqrt(2 ln 2)
 // Widths and ellipticity of a located window (pixel variance 1/12 removed,
 // negative results clamped to 0); all 0 when !m.located.
 SpotShape spot_shape(const WindowMoments& m);
+
+// The folded path (u8/u16 frames): the moments of (raw - dark - level)
+// come from raw integer column sums (frame/raw_columns.h) minus constants,
+// because every moment is linear in the pixels:
+//   sum w (raw - dark - level) = sum w raw - sum w dark - level sum w
+// for each weight w in {1, x, y, x^2, y^2, xy} (window-local x, y). The
+// dark's sums are per-box constants computed once (FoldedDark); the level's
+// are the box geometry's. Only the border ring is read again, for the level.
+struct FoldedDark {
+  double d00 = 0, d10 = 0, d01 = 0, d20 = 0, d02 = 0, d11 = 0;  // sum w dark over the box
+};
+// dark: row-major, image_width wide (empty: no dark, all zero).
+FoldedDark fold_dark(std::span<const float> dark, int image_width, int x0, int y0, int width, int height);
+
+struct RawColumns;
+// Moments of the w x h window whose raw column sums are cols[x0 .. x0+w-1]
+// (accumulated over h rows), minus dark and a uniform level. peak is the
+// brightest raw pixel (the column maxima), not corrected.
+WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level);
 
 class MomentAccumulator {
  public:

@@ -8,6 +8,7 @@
 #include <fmt/format.h>
 
 #include "daemon/core/frame/box_correction.h"
+#include "daemon/core/frame/raw_columns.h"
 #include "daemon/core/centroid/make_centroider.h"
 
 namespace slopecast::core {
@@ -54,24 +55,45 @@ std::string validate(const PipelineSettings& s) {
   return {};
 }
 
-Pipeline::Pipeline(PipelineSettings settings)
+Pipeline::Lane::Lane(const PipelineSettings& s, bool strip, bool raw_columns)
+    : centroider(make_centroider(s.centroider, s.grid.pitch_px)),
+      strip(strip ? static_cast<std::size_t>(s.grid.pitch_px) * s.grid.n_subap_x * s.grid.pitch_px : 0),
+      column_max(static_cast<std::size_t>(s.grid.n_subap_x) * s.grid.pitch_px),
+      border(static_cast<std::size_t>(border_scratch_size(s.grid.pitch_px, s.grid.pitch_px))),
+      moments(s.grid.n_subap_x * s.grid.pitch_px),
+      strip_moments(static_cast<std::size_t>(s.grid.n_subap_x)),
+      raw_box(static_cast<std::size_t>(s.grid.pitch_px) * s.grid.pitch_px) {
+  if (raw_columns)
+    for (auto* v : {&col_s, &col_t, &col_u, &col_max})
+      v->assign(static_cast<std::size_t>(s.grid.n_subap_x) * s.grid.pitch_px, 0u);
+}
+
+Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel> simd)
     : settings_(std::move(settings)),
-      centroider_(make_centroider(settings_.centroider, settings_.grid.pitch_px)),
-      strip_(static_cast<std::size_t>(settings_.grid.pitch_px) * settings_.grid.n_subap_x * settings_.grid.pitch_px),
-      column_max_(static_cast<std::size_t>(settings_.grid.n_subap_x) * settings_.grid.pitch_px),
-      border_(2 * static_cast<std::size_t>(border_pixel_count(settings_.grid.pitch_px, settings_.grid.pitch_px))),
+      folded_(raw_columns_exact(settings_.camera.format, settings_.grid.pitch_px)),
+      needs_pixels_(settings_.centroider.kind != CentroiderKind::kCog || !folded_),
+      simd_(simd.value_or(best_simd_level())),
+      kernel_(folded_ ? raw_column_kernel(settings_.camera.format, simd_) : nullptr),
       borders_(static_cast<std::size_t>(settings_.grid.count())),
       estimates_(static_cast<std::size_t>(settings_.grid.count())),
       contexts_(static_cast<std::size_t>(settings_.grid.count())),
-      moments_(settings_.grid.n_subap_x * settings_.grid.pitch_px),
-      scratch_moments_(static_cast<std::size_t>(settings_.grid.n_subap_x)),
       raw_max_(static_cast<std::size_t>(settings_.grid.count())),
       saturated_pixels_(static_cast<std::size_t>(settings_.grid.count())),
-      raw_box_(static_cast<std::size_t>(settings_.grid.pitch_px) * settings_.grid.pitch_px),
       sigmas_(static_cast<std::size_t>(settings_.grid.count())),
       fwhms_(static_cast<std::size_t>(settings_.grid.count())),
       saturation_adu_(static_cast<float>(settings_.saturation_adu.value_or(full_scale_adu(settings_.camera.format)))) {
   assert(validate(settings_).empty());
+  assert(lanes >= 1);
+  for (int i = 0; i < lanes; ++i) lanes_.emplace_back(settings_, needs_pixels_, folded_);
+  if (folded_) {
+    const LensletGrid& g = settings_.grid;
+    folded_dark_.resize(static_cast<std::size_t>(g.count()));
+    for (int iy = 0; iy < g.n_subap_y; ++iy)
+      for (int ix = 0; ix < g.n_subap_x; ++ix)
+        folded_dark_[static_cast<std::size_t>(iy) * g.n_subap_x + ix] =
+            fold_dark(settings_.dark_adu, settings_.camera.width_px, g.box_x0(ix), g.box_y0(iy), g.pitch_px,
+                      g.pitch_px);
+  }
 }
 
 FrameMeasurement Pipeline::make_measurement() const {
@@ -81,45 +103,74 @@ FrameMeasurement Pipeline::make_measurement() const {
 }
 
 void Pipeline::measure(const ImageView& image, FrameMeasurement& out) {
+  measure_rows(image, 0, settings_.grid.n_subap_y, 0);
+  finish(out);
+}
+
+void Pipeline::measure_rows(const ImageView& image, int iy_begin, int iy_end, int lane_index) {
   const LensletGrid& g = settings_.grid;
   const PipelineSettings& s = settings_;
-  assert(out.size() == g.count());
+  Lane& lane = lanes_[static_cast<std::size_t>(lane_index)];
   const int p = g.pitch_px;
   const int strip_width = g.n_subap_x * p;
   const bool subtract = s.background == BackgroundMode::kBorder;
   const bool check_saturation = std::isfinite(saturation_adu_);
-  const StripView strip{strip_.data(), p, p, g.n_subap_x, strip_width};
+  const StripView strip{lane.strip.data(), p, p, g.n_subap_x, strip_width};
+  const RawColumns cols{lane.col_s.data(), lane.col_t.data(), lane.col_u.data(), lane.col_max.data()};
 
-  // Pass 1: every pixel once.
-  for (int iy = 0; iy < g.n_subap_y; ++iy) {
+  for (int iy = iy_begin; iy < iy_end; ++iy) {
     const int row0 = iy * g.n_subap_x;
-    correct_box(image, s.dark_adu, Box{g.origin_x_px, g.box_y0(iy), strip_width, p}, strip_,
-                check_saturation ? std::span<float>(column_max_) : std::span<float>());
+    const Box strip_box{g.origin_x_px, g.box_y0(iy), strip_width, p};
+    // Pixels: integer column sums (folded path), and the corrected strip
+    // where the method reads pixels or the frame cannot be folded.
+    if (folded_) kernel_(image, strip_box.x0, strip_box.y0, strip_width, p, cols);
+    if (needs_pixels_)
+      correct_box(image, s.dark_adu, strip_box, lane.strip, folded_ ? std::span<float>() : std::span<float>(lane.column_max));
     for (int ix = 0; ix < g.n_subap_x; ++ix) {
-      BorderStats& b = borders_[row0 + ix];
-      b = border_stats(strip.window(ix), border_);
-      if (subtract && b.finite) subtract_constant(strip_.data() + ix * p, p, p, strip_width, b.level_adu);
-      if (check_saturation) {
-        const float* cm = column_max_.data() + ix * p;
-        raw_max_[row0 + ix] = *std::max_element(cm, cm + p);
-        saturated_pixels_[row0 + ix] = 0;
-        // Rare: only a box that reached the level is read again, raw, to
-        // count its saturated pixels.
-        if (raw_max_[row0 + ix] >= saturation_adu_) {
-          correct_box(image, {}, Box{g.box_x0(ix), g.box_y0(iy), p, p}, raw_box_);
-          saturated_pixels_[row0 + ix] = static_cast<std::uint32_t>(
-              std::count_if(raw_box_.begin(), raw_box_.end(), [&](float v) { return v >= saturation_adu_; }));
-        }
+      const int i = row0 + ix;
+      BorderStats& b = borders_[i];
+      b = needs_pixels_ ? border_stats(strip.window(ix), lane.border)
+                        : border_stats_raw(image, s.dark_adu, Box{g.box_x0(ix), g.box_y0(iy), p, p}, lane.border);
+      const float level = subtract && b.finite ? b.level_adu : 0.0f;
+      if (needs_pixels_ && level != 0.0f) subtract_constant(lane.strip.data() + ix * p, p, p, strip_width, level);
+      if (folded_) {
+        contexts_[i].moments = folded_moments(cols, ix * p, p, p, folded_dark_[i], level);
+        raw_max_[i] = static_cast<float>(contexts_[i].moments.peak);
+      } else {
+        const float* cm = lane.column_max.data() + ix * p;
+        raw_max_[i] = *std::max_element(cm, cm + p);
+      }
+      contexts_[i].noise_adu = b.sigma_adu;
+      saturated_pixels_[i] = 0;
+      // Rare: only a box that reached the level is read again, raw, to count
+      // its saturated pixels.
+      if (check_saturation && raw_max_[i] >= saturation_adu_) {
+        correct_box(image, {}, Box{g.box_x0(ix), g.box_y0(iy), p, p}, lane.raw_box);
+        saturated_pixels_[i] = static_cast<std::uint32_t>(
+            std::count_if(lane.raw_box.begin(), lane.raw_box.end(), [&](float v) { return v >= saturation_adu_; }));
       }
     }
-    moments_.strip(strip, scratch_moments_);
-    for (int ix = 0; ix < g.n_subap_x; ++ix) {
-      contexts_[row0 + ix].moments = scratch_moments_[ix];
-      contexts_[row0 + ix].noise_adu = borders_[row0 + ix].sigma_adu;
+    if (!folded_) {
+      lane.moments.strip(strip, lane.strip_moments);
+      for (int ix = 0; ix < g.n_subap_x; ++ix) {
+        WindowMoments m = lane.strip_moments[ix];
+        m.peak = raw_max_[row0 + ix];  // published peak: the raw maximum, as on the folded path
+        contexts_[row0 + ix].moments = m;
+      }
     }
-    centroider_->measure_strip(strip, std::span<const WindowContext>(contexts_).subspan(row0, g.n_subap_x),
-                               std::span<SpotEstimate>(estimates_).subspan(row0, g.n_subap_x));
+    const auto ctx = std::span<const WindowContext>(contexts_).subspan(row0, g.n_subap_x);
+    const auto est = std::span<SpotEstimate>(estimates_).subspan(row0, g.n_subap_x);
+    if (needs_pixels_) {
+      lane.centroider->measure_strip(strip, ctx, est);
+    } else {
+      const WindowView none{};
+      for (int ix = 0; ix < g.n_subap_x; ++ix) est[ix] = lane.centroider->measure(none, ctx[ix]);
+    }
   }
+}
+
+void Pipeline::finish(FrameMeasurement& out) {
+  assert(out.size() == settings_.grid.count());
   decide(out);
 }
 
@@ -234,7 +285,7 @@ std::variant<std::vector<float>, std::string> Pipeline::capture_reference(const 
                                                                           const FrameMeasurement& measured) const {
   const LensletGrid& g = settings_.grid;
   const int p = g.pitch_px;
-  std::vector<float> box(static_cast<std::size_t>(p) * p), ring(2 * static_cast<std::size_t>(border_pixel_count(p, p)));
+  std::vector<float> box(static_cast<std::size_t>(p) * p), ring(static_cast<std::size_t>(border_scratch_size(p, p)));
   std::vector<double> sum(box.size(), 0.0);
   std::vector<int> count(box.size(), 0);
   int used = 0;

@@ -30,6 +30,7 @@
 
 #include "daemon/core/metrics/background.h"
 #include "daemon/core/centroid/centroider.h"
+#include "daemon/core/frame/raw_columns.h"
 #include "daemon/core/metrics/window_moments.h"
 #include "daemon/core/pipeline/frame_measurement.h"
 #include "daemon/core/frame/image_view.h"
@@ -87,8 +88,11 @@ std::string validate(const PipelineSettings& settings);
 
 class Pipeline {
  public:
-  // Precondition: validate(settings) is empty.
-  explicit Pipeline(PipelineSettings settings);
+  // Precondition: validate(settings) is empty. lanes: how many threads may
+  // call measure_rows() at once (each lane has its own scratch). simd: the
+  // kernels' instruction set (default: the best this CPU runs; tests force
+  // each).
+  explicit Pipeline(PipelineSettings settings, int lanes = 1, std::optional<SimdLevel> simd = std::nullopt);
 
   const PipelineSettings& settings() const { return settings_; }
   // Returns a FrameMeasurement sized for this pipeline's grid.
@@ -97,6 +101,20 @@ class Pipeline {
   // Precondition: image matches settings().camera (check_frame() passed) and
   // out came from make_measurement().
   void measure(const ImageView& image, FrameMeasurement& out);
+
+  // measure() in parts, for several threads: pass 1 over subaperture rows
+  // [iy_begin, iy_end) with lane `lane`'s scratch (distinct lanes may run at
+  // once on disjoint rows; they share no writable memory), then finish()
+  // once every row is done. measure() is measure_rows(all rows, lane 0) +
+  // finish().
+  void measure_rows(const ImageView& image, int iy_begin, int iy_end, int lane);
+  void finish(FrameMeasurement& out);
+  int lanes() const { return static_cast<int>(lanes_.size()); }
+  // Whether u8/u16 pixels go through the integer column sums (the folded
+  // path), and whether the method reads corrected pixels.
+  bool folded() const { return folded_; }
+  bool needs_pixels() const { return needs_pixels_; }
+  SimdLevel simd() const { return simd_; }
 
   // A correlation reference from a frame already measured by this pipeline:
   // the mean of its valid subapertures' corrected boxes, each moved by its
@@ -113,19 +131,31 @@ class Pipeline {
   // results of pass 1.
   void decide(FrameMeasurement& out);
 
+  // One thread's scratch.
+  struct Lane {
+    Lane(const PipelineSettings& s, bool strip, bool raw_columns);
+    std::unique_ptr<Centroider> centroider;
+    std::vector<float> strip;                // one corrected row of boxes (when pixels are read)
+    std::vector<float> column_max;           // raw maximum of each strip column (float path)
+    std::vector<float> border;               // one box's border ring
+    MomentAccumulator moments;               // float path
+    std::vector<WindowMoments> strip_moments;
+    std::vector<std::uint32_t> col_s, col_t, col_u, col_max;  // raw column sums (folded path)
+    std::vector<float> raw_box;              // one box's raw pixels, to count saturated ones
+  };
+
   PipelineSettings settings_;
-  std::unique_ptr<Centroider> centroider_;
-  std::vector<float> strip_;             // scratch: one corrected row of boxes
-  std::vector<float> column_max_;        // scratch: raw maximum of each strip column
-  std::vector<float> border_;            // scratch: one box's border ring
-  std::vector<BorderStats> borders_;     // scratch: one per box of the grid
-  std::vector<SpotEstimate> estimates_;  // scratch: one per box of the grid
-  std::vector<WindowContext> contexts_;  // scratch: one per box of the grid
-  MomentAccumulator moments_;
-  std::vector<WindowMoments> scratch_moments_;  // scratch: one per box of a strip
-  std::vector<float> raw_max_;           // scratch: raw maximum per box of the grid
-  std::vector<std::uint32_t> saturated_pixels_;  // scratch: per box of the grid
-  std::vector<float> raw_box_;           // scratch: one box's raw pixels, to count saturated ones
+  bool folded_;
+  bool needs_pixels_;
+  SimdLevel simd_;
+  RawColumnKernel kernel_;
+  std::vector<FoldedDark> folded_dark_;  // per box (folded path)
+  std::vector<Lane> lanes_;
+  std::vector<BorderStats> borders_;     // one per box of the grid
+  std::vector<SpotEstimate> estimates_;  // one per box of the grid
+  std::vector<WindowContext> contexts_;  // one per box of the grid
+  std::vector<float> raw_max_;           // raw maximum per box of the grid
+  std::vector<std::uint32_t> saturated_pixels_;  // per box of the grid
   std::vector<float> sigmas_;            // scratch: for the frame's median pixel noise
   std::vector<float> fwhms_;             // scratch: for the frame's median FWHM
   float saturation_adu_;                 // resolved settings_.saturation_adu
