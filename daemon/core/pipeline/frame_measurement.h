@@ -43,7 +43,7 @@ struct FrameMeasurement {
   std::vector<float> slope_y_px;
   // Sum of corrected pixels in the box: raw - dark - background, ADU.
   std::vector<float> flux_adu;
-  // Brightest corrected pixel in the box (raw - dark - background), ADU.
+  // Brightest raw pixel of the box (before dark and background), ADU.
   std::vector<float> peak_adu;
   // Background estimated for the box (median of its border after the dark),
   // ADU per pixel; 0 where background estimation is off.
