@@ -50,7 +50,8 @@ std::span<const std::byte> bytes_of(const zmq::message_t& m) {
 
 Daemon::Daemon(io::DaemonConfig config)
     : config_(std::move(config)),
-      pipeline_(config_.pipeline),
+      pipeline_(config_.pipeline, config_.worker_threads),
+      workers_(config_.worker_threads),
       measurement_(pipeline_.make_measurement()),
       stats_(config_.latency_window_frames, config_.max_seq_jump),
       started_(std::chrono::steady_clock::now()),
@@ -103,12 +104,14 @@ Daemon::~Daemon() { zmq_socket_monitor(frames_.handle(), nullptr, 0); }
 int Daemon::run(int signal_fd) {
   const auto& g = config_.pipeline.grid;
   spdlog::info("slopecastd {} ready: frames from {}, measurements on {}, control on {}; {}x{} {} camera, "
-               "{}x{} subapertures of {} px, {} centroider, dark {}",
+               "{}x{} subapertures of {} px, {} centroider, dark {}; {} path, {} kernels, {} thread(s)",
                kVersion, config_.endpoints.frames_in, config_.endpoints.measurements_out,
                config_.endpoints.control, config_.pipeline.camera.width_px,
                config_.pipeline.camera.height_px, core::pixel_format_name(config_.pipeline.camera.format),
                g.n_subap_x, g.n_subap_y, g.pitch_px, core::describe(config_.pipeline.centroider),
-               config_.dark_frame.empty() ? std::string("none") : config_.dark_frame.string());
+               config_.dark_frame.empty() ? std::string("none") : config_.dark_frame.string(),
+               pipeline_.folded() ? "folded (integer sums)" : "float", core::simd_level_name(pipeline_.simd()),
+               workers_.threads());
   for (const auto& w : config_.warnings) spdlog::warn("{}", w);
   zmq::pollitem_t items[] = {
       {frames_.handle(), 0, ZMQ_POLLIN, 0},
@@ -255,7 +258,8 @@ void Daemon::handle_frame(zmq::message_t& header, zmq::message_t* payload, bool 
   if (header_scratch_.source_id() != last_source_id_) last_source_id_ = header_scratch_.source_id();
   const auto t_checked = std::chrono::steady_clock::now();
 
-  pipeline_.measure(*checked.image, measurement_);
+  workers_.measure_rows(pipeline_, *checked.image);
+  pipeline_.finish(measurement_);
   last_image_ = *checked.image;
   has_last_image_ = true;
   ++stats_.frames_processed;
@@ -383,6 +387,8 @@ void Daemon::fill_status(v1::StatusReply& s) {
   s.set_pixel_type(std::string(core::pixel_format_name(p.camera.format)));
   s.set_max_frame_bytes(config_.max_frame_bytes);
   io::describe_centroider(pipeline_.settings().centroider, settings_generation_, *s.mutable_centroider());
+  s.set_worker_threads(static_cast<std::uint32_t>(workers_.threads()));
+  s.set_simd(core::simd_level_name(pipeline_.simd()));
 }
 
 void Daemon::set_centroider(const v1::SetCentroiderRequest& req, v1::ControlReply& reply) {
@@ -418,7 +424,7 @@ void Daemon::set_centroider(const v1::SetCentroiderRequest& req, v1::ControlRepl
   if (changed) {
     // Built here, between two frames: the frame after this request is the
     // first measured with the new settings.
-    pipeline_ = core::Pipeline(std::move(settings));
+    pipeline_ = core::Pipeline(std::move(settings), config_.worker_threads);
     ++settings_generation_;
     spdlog::info("centroider now {} (settings generation {})", core::describe(pipeline_.settings().centroider),
                  settings_generation_);

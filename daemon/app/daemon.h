@@ -37,6 +37,7 @@
 #include <zmq.hpp>
 
 #include "daemon/app/daemon_stats.h"
+#include "daemon/app/row_workers.h"
 #include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/daemon_config.h"
 #include "slopecast/v1/control.pb.h"
@@ -78,6 +79,7 @@ class Daemon {
   // The settings in force live in pipeline_.settings(); config_.pipeline keeps
   // what the daemon started with (camera and grid never change).
   core::Pipeline pipeline_;
+  RowWorkers workers_;
   std::uint32_t settings_generation_ = 1;  // +1 per applied settings change
   // The last measured frame, for capturing a reference: a view into
   // payload_msg_, valid while has_last_image_ (until the next frame is read).

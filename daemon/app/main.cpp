@@ -74,6 +74,8 @@ relative to the config file.
   stale_after_s         = 1.0          no frame for this long: stream state "stale"
   max_seq_jump          = 100000       a larger forward seq jump is a restart, not
                                        missed frames
+  worker_threads        = 1            threads measuring each frame, rows split between
+                                       them (default 1; try 2 for 80 x 80 and up)
   max_frame_bytes       = 67108864     largest frame part accepted; a larger one
                                        drops the connection, which is counted and
                                        re-made (default max(4 x frame + 1 MiB, 64 MiB))

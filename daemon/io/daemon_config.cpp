@@ -194,6 +194,7 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   d.integer("frame_queue_depth", c.frame_queue_depth, 1, 10000);
   d.integer("measurement_queue_depth", c.measurement_queue_depth, 1, 100000);
   d.integer("latency_window_frames", c.latency_window_frames, 16, 1000000);
+  d.integer("worker_threads", c.worker_threads, 1, 64);
   d.number("stale_after_s", c.stale_after_s, 0.001);
   double max_jump = static_cast<double>(c.max_seq_jump), max_frame = 0.0;
   d.number("max_seq_jump", max_jump, 1.0);

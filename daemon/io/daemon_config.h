@@ -48,6 +48,11 @@ struct DaemonConfig {
   // ZeroMQ drop the connection; the daemon counts that and reconnects.
   // 0 in the file means the default: max(4 x the configured frame + 1 MiB, 64 MiB).
   std::int64_t max_frame_bytes = 0;
+  // Threads that measure a frame (the loop thread and worker_threads - 1
+  // helpers, each taking a band of subaperture rows). 1 for small sensors;
+  // more only helps when a frame's measurement is the bottleneck (80 x 80
+  // subapertures and up) and cores are free.
+  int worker_threads = 1;
   // Dark frame path as resolved (empty: none). The pixels are in pipeline.dark_adu.
   std::filesystem::path dark_frame;
   // The config file's folder: relative paths, in the file and in live

@@ -37,13 +37,14 @@ TEST_CASE("the centroider switches live without losing a frame, and a bad settin
                   "[lenslet_grid]\nsubapertures_x = 8\nsubapertures_y = 8\npitch_px = 15\n"
                   "[calibration]\nmin_flux_adu = 500\n"
                   "[centroider]\nmethod = \"cog\"\nspot_sigma_px = 0.9\n"
-                  "[daemon]\nframe_queue_depth = 2000\nmeasurement_queue_depth = 4000\n"));
+                  "[daemon]\nframe_queue_depth = 2000\nmeasurement_queue_depth = 4000\nworker_threads = 2\n"));
   client::MeasurementSubscriber sub(h.ctx, h.measurements_endpoint);
   REQUIRE(h.wait_for_subscribers(1));
   {
     const v1::StatusReply s = h.status();
     CHECK(s.centroider().method() == "cog");
     CHECK(s.centroider().settings_generation() == 1u);
+    CHECK(s.worker_threads() == 2u);  // every switch below rebuilds a two-lane pipeline
   }
 
   const int frames = 1600;
