@@ -20,6 +20,7 @@ void add_sim_command(CLI::App& app);
 void add_watch_command(CLI::App& app);
 void add_status_command(CLI::App& app);
 void add_centroider_command(CLI::App& app);
+void add_roundtrip_command(CLI::App& app);
 
 // True once SIGINT or SIGTERM has arrived (installed by main).
 bool stop_requested();

@@ -37,6 +37,7 @@ int main(int argc, char** argv) {
   add_watch_command(app);
   add_status_command(app);
   add_centroider_command(app);
+  add_roundtrip_command(app);
   CLI11_PARSE(app, argc, argv);
   if (stop_requested() && exit_code() == 0) exit_code() = stopped_exit_code();
   return exit_code();
