@@ -28,7 +28,7 @@ void print_status(const v1::StatusReply& s) {
       "  sensor        {} x {} px {}, {} x {} subapertures of {} px, dark {}\n"
       "  centroider    {}  (settings generation {})\n"
       "  stream        {}  last frame {} ago  from '{}'\n"
-      "  frames        received {}  processed {}  rejected {}  missed {}  rate {:.1f} Hz\n"
+      "  frames        received {}  processed {}  rejected {}  missed {}  skipped {}  rate {:.1f} Hz\n"
       "  seq           last {}  repeated {}  restarts {}  connection drops {}\n"
       "  measurements  published {}  subscriptions {}\n"
       "  latency       median {:.1f} us  p99 {:.1f} us  max {:.1f} us  (received -> published, last {} frames)\n",
@@ -36,7 +36,8 @@ void print_status(const v1::StatusReply& s) {
       s.pitch_px(), s.dark_loaded() ? "loaded" : "none", s.centroider().summary(),
       s.centroider().settings_generation(), s.stream_state_name(),
       s.has_last_seq() ? fmt::format("{:.2f} s", s.last_frame_age_s()) : std::string("-"), s.last_source_id(),
-      s.frames_received(), s.frames_processed(), s.frames_rejected(), s.frames_missed(), s.frame_rate_hz(),
+      s.frames_received(), s.frames_processed(), s.frames_rejected(), s.frames_missed(), s.frames_skipped(),
+      s.frame_rate_hz(),
       s.has_last_seq() ? std::to_string(s.last_seq()) : std::string("-"), s.frames_repeated(), s.seq_restarts(),
       s.frame_connection_drops(), s.measurements_published(), s.measurement_subscribers(), s.latency_median_us(),
       s.latency_p99_us(), s.latency_max_us(), s.latency_window_frames());

@@ -211,6 +211,16 @@ int Daemon::handle_frames() {
     (void)frames_.recv(payload_msg_);
     const bool extra = payload_msg_.more();
     for (bool more = extra; more; more = extra_msg_.more()) (void)frames_.recv(extra_msg_);
+    // Newest wins: a frame with another already queued behind it is stale.
+    if (config_.newest_frame_only && (frames_.get(zmq::sockopt::events) & ZMQ_POLLIN)) {
+      ++stats_.frames_received;
+      ++stats_.frames_skipped;
+      // Its seq still counts for the stream's accounting, so that a skipped
+      // frame is never reported as missed by the camera.
+      if (!extra && io::decode_frame_header(bytes_of(header_msg_), header_scratch_))
+        (void)stats_.note_seq(header_scratch_.seq());
+      continue;
+    }
     handle_frame(header_msg_, &payload_msg_, extra);
   }
   return n;
@@ -360,6 +370,8 @@ void Daemon::fill_status(v1::StatusReply& s) {
   s.set_frames_repeated(stats_.frames_repeated);
   s.set_seq_restarts(stats_.seq_restarts);
   s.set_frame_connection_drops(stats_.frame_connection_drops);
+  s.set_frames_skipped(stats_.frames_skipped);
+  s.set_newest_frame_only(config_.newest_frame_only);
   const auto now = std::chrono::steady_clock::now();
   v1::StreamState state = v1::STREAM_STATE_WAITING;
   if (stats_.has_last_seq) {

@@ -42,6 +42,9 @@ class DaemonStats {
   std::uint64_t frames_repeated = 0;  // seq equal to the previous
   std::uint64_t seq_restarts = 0;     // backwards steps and over-large jumps
   std::uint64_t frame_connection_drops = 0;
+  // Frames taken off the socket but not measured because a newer one was
+  // already queued (newest_frame_only).
+  std::uint64_t frames_skipped = 0;
   std::uint64_t last_seq = 0;
   bool has_last_seq = false;
   double frame_rate_hz = 0.0;  // updated by tick()

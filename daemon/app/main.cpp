@@ -69,6 +69,9 @@ relative to the config file.
 @CENTROIDER@
   [daemon]
   frame_queue_depth     = 4            frames queued before newer ones drop (default 4)
+  newest_frame_only     = false        true: when frames queue up, measure only the
+                                       newest (the others are counted as skipped);
+                                       false: measure every frame in order (default)
   measurement_queue_depth = 64         measurements queued per subscriber before drops (default 64)
   latency_window_frames = 4096         frames behind the status latency figures
   stale_after_s         = 1.0          no frame for this long: stream state "stale"

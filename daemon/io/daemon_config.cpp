@@ -38,6 +38,12 @@ class TableReader {
     else return fail(key, "expected a number");
     if (!(out >= min)) return fail(key, fmt::format("must be >= {}, got {}", min, out));
   }
+  void boolean(const char* key, bool& out) {
+    const toml::value* v = find(key);
+    if (!v || !error.empty()) return;
+    if (!v->is_boolean()) return fail(key, "expected true or false");
+    out = v->as_boolean();
+  }
   void string(const char* key, std::string& out) {
     const toml::value* v = find(key);
     if (!v || !error.empty()) return;
@@ -195,6 +201,7 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   d.integer("measurement_queue_depth", c.measurement_queue_depth, 1, 100000);
   d.integer("latency_window_frames", c.latency_window_frames, 16, 1000000);
   d.integer("worker_threads", c.worker_threads, 1, 64);
+  d.boolean("newest_frame_only", c.newest_frame_only);
   d.number("stale_after_s", c.stale_after_s, 0.001);
   double max_jump = static_cast<double>(c.max_seq_jump), max_frame = 0.0;
   d.number("max_seq_jump", max_jump, 1.0);

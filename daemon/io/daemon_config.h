@@ -53,6 +53,13 @@ struct DaemonConfig {
   // more only helps when a frame's measurement is the bottleneck (80 x 80
   // subapertures and up) and cores are free.
   int worker_threads = 1;
+  // What happens when frames arrive faster than they are measured. false
+  // (default): every frame is measured in order; ZeroMQ drops frames that
+  // arrive while frame_queue_depth are already queued -- the newest -- so a
+  // backlog ages by up to that many frames. true: the newest frame wins --
+  // whenever another frame is already queued the current one is skipped
+  // (counted in frames_skipped), so a loop always gets the freshest frame.
+  bool newest_frame_only = false;
   // Dark frame path as resolved (empty: none). The pixels are in pipeline.dark_adu.
   std::filesystem::path dark_frame;
   // The config file's folder: relative paths, in the file and in live

@@ -162,3 +162,39 @@ TEST_CASE("SIGHUP is logged and ignored", "[integration][daemon]") {
   CHECK(h.status().frames_received() == 0);  // still answering
   CHECK(h.stop(1000ms) == 0);
 }
+
+TEST_CASE("with newest_frame_only a backlog is skipped to the newest frame, and counted", "[integration][daemon]") {
+  // A Gaussian fit per box makes each frame cost a millisecond or more,
+  // while the simulator sends 200 small frames as fast as it can without
+  // loss (--block-when-full, deep queues): frames pile up in the daemon's
+  // queue. Newest wins: every frame is either measured or skipped, the last
+  // one sent is measured, and nothing is lost on the way.
+  testing::DaemonHarness h;
+  REQUIRE(h.start("[camera]\nwidth_px = 60\nheight_px = 60\npixel_type = \"u16\"\n"
+                  "[lenslet_grid]\nsubapertures_x = 4\nsubapertures_y = 4\npitch_px = 15\n"
+                  "[centroider]\nmethod = \"gaussian_fit\"\nspot_sigma_px = 0.9\n"
+                  "[daemon]\nframe_queue_depth = 1000\nmeasurement_queue_depth = 1000\nnewest_frame_only = true\n"));
+  client::MeasurementSubscriber sub(h.ctx, h.measurements_endpoint);
+  REQUIRE(h.wait_for_subscribers(1));
+  testing::ChildProcess sim(SLOPECAST_PATH,
+                            {"sim", "--frames-out", h.frames_endpoint, "--frames", "200", "--rate-hz", "100000",
+                             "--distinct-frames", "4", "--block-when-full", "--subapertures-x", "4",
+                             "--subapertures-y", "4", "--pitch-px", "15"},
+                            h.dir / "sim.log");
+  REQUIRE(sim.wait(30s) == 0);
+  // Wait (bounded) until the daemon has accounted for all 200.
+  v1::StatusReply s;
+  const auto deadline = std::chrono::steady_clock::now() + 20s;
+  do {
+    s = h.status();
+  } while (s.frames_processed() + s.frames_skipped() < 200 && std::chrono::steady_clock::now() < deadline);
+  INFO("daemon log:\n" << h.log());
+  CHECK(s.newest_frame_only());
+  CHECK(s.frames_received() == 200u);
+  CHECK(s.frames_processed() + s.frames_skipped() == 200u);
+  CHECK(s.frames_skipped() > 0u);
+  CHECK(s.frames_missed() == 0u);  // skipped frames are not the camera's gaps
+  std::uint64_t last = 0;
+  while (auto m = sub.receive(200ms)) last = m->frame_seq();
+  CHECK(last == 199u);
+}

@@ -180,3 +180,13 @@ TEST_CASE("the Harrow Vale fixture documents every centroider key", "[config][ce
     CHECK(text.find(std::string(o.key) + " =") != std::string::npos);
   }
 }
+
+TEST_CASE("the [daemon] performance keys", "[config]") {
+  auto r = io::parse_daemon_config(with(kGood, "frame_queue_depth = 8", "frame_queue_depth = 8\nworker_threads = 2\nnewest_frame_only = true"),
+                                   "test.toml", ".");
+  REQUIRE(std::holds_alternative<io::DaemonConfig>(r));
+  CHECK(std::get<io::DaemonConfig>(r).worker_threads == 2);
+  CHECK(std::get<io::DaemonConfig>(r).newest_frame_only);
+  CHECK_THAT(error_of(with(kGood, "frame_queue_depth = 8", "worker_threads = 0")), Catch::Contains("worker_threads: must be 1..64"));
+  CHECK_THAT(error_of(with(kGood, "frame_queue_depth = 8", "newest_frame_only = 1")), Catch::Contains("newest_frame_only: expected true or false"));
+}
