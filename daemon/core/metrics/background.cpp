@@ -176,33 +176,45 @@ BorderStats border_stats(const WindowView& w, std::span<float> scratch) {
 }
 
 namespace {
-template <typename T>
-void gather_ring(const ImageView& image, const float* dark, const Box& box, float* ring) {
-  auto at = [&](int x, int y) {
-    const float raw = static_cast<float>(load_pixel<T>(image.row(box.y0 + y), box.x0 + x));
-    return dark ? raw - dark[static_cast<std::size_t>(box.y0 + y) * image.width + box.x0 + x] : raw;
-  };
-  int k = 0;
-  const int w = box.width, h = box.height;
+// Visits a box's ring pixels in ring order: f(x, y), box-local.
+template <typename F>
+void for_ring(int w, int h, F f) {
   if (w < 3 || h < 3) {
     for (int y = 0; y < h; ++y)
-      for (int x = 0; x < w; ++x) ring[k++] = at(x, y);
+      for (int x = 0; x < w; ++x) f(x, y);
     return;
   }
-  for (int x = 0; x < w; ++x) ring[k++] = at(x, 0);
-  for (int x = 0; x < w; ++x) ring[k++] = at(x, h - 1);
+  for (int x = 0; x < w; ++x) f(x, 0);
+  for (int x = 0; x < w; ++x) f(x, h - 1);
   for (int y = 1; y < h - 1; ++y) {
-    ring[k++] = at(0, y);
-    ring[k++] = at(w - 1, y);
+    f(0, y);
+    f(w - 1, y);
   }
+}
+
+template <typename T>
+void gather_ring(const ImageView& image, const float* ring_dark, const Box& box, float* ring) {
+  int k = 0;
+  for_ring(box.width, box.height, [&](int x, int y) {
+    ring[k] = static_cast<float>(load_pixel<T>(image.row(box.y0 + y), box.x0 + x)) - (ring_dark ? ring_dark[k] : 0.0f);
+    ++k;
+  });
 }
 }  // namespace
 
-BorderStats border_stats_raw(const ImageView& image, std::span<const float> dark, const Box& box,
+void ring_dark_values(std::span<const float> dark, int image_width, const Box& box, float* out) {
+  int k = 0;
+  for_ring(box.width, box.height, [&](int x, int y) {
+    out[k++] = dark[static_cast<std::size_t>(box.y0 + y) * image_width + box.x0 + x];
+  });
+}
+
+BorderStats border_stats_raw(const ImageView& image, std::span<const float> ring_dark, const Box& box,
                              std::span<float> scratch) {
   const int n = border_pixel_count(box.width, box.height);
   assert(scratch.size() >= 2 * static_cast<std::size_t>(n) + 8);
-  const float* d = dark.empty() ? nullptr : dark.data();
+  assert(ring_dark.empty() || ring_dark.size() >= static_cast<std::size_t>(n));
+  const float* d = ring_dark.empty() ? nullptr : ring_dark.data();
   switch (image.format) {
     case PixelFormat::kU8: gather_ring<std::uint8_t>(image, d, box, scratch.data()); break;
     case PixelFormat::kU16: gather_ring<std::uint16_t>(image, d, box, scratch.data()); break;

@@ -69,12 +69,17 @@ inline int border_scratch_size(int width, int height) { return 2 * border_pixel_
 // Allocation-free.
 BorderStats border_stats(const WindowView& window, std::span<float> scratch);
 
-// The same from the raw frame: the ring of box `box` of the image, minus the
-// dark where given (row-major, image.width wide), without correcting the
-// rest of the box. Identical to border_stats() of the corrected window.
+// The same from the raw frame: the ring of box `box` of the image, minus
+// ring_dark (the dark's values at the ring pixels, in ring order, as
+// ring_dark_values() lays them out; empty for no dark), without correcting
+// the rest of the box. Identical to border_stats() of the corrected window.
 struct Box;
-BorderStats border_stats_raw(const ImageView& image, std::span<const float> dark, const Box& box,
+BorderStats border_stats_raw(const ImageView& image, std::span<const float> ring_dark, const Box& box,
                              std::span<float> scratch);
+// The dark frame's values at a box's ring pixels, in ring order (computed
+// once per box, so that the frame loop reads them contiguously). dark is
+// row-major, image_width wide.
+void ring_dark_values(std::span<const float> dark, int image_width, const Box& box, float* out);
 
 // Subtracts value from every pixel of the window (the window's memory is
 // writable scratch in the pipeline, hence the cast-free float* argument).

@@ -87,6 +87,15 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
   for (int i = 0; i < lanes; ++i) lanes_.emplace_back(settings_, needs_pixels_, folded_);
   if (folded_) {
     const LensletGrid& g = settings_.grid;
+    ring_pixels_ = border_pixel_count(g.pitch_px, g.pitch_px);
+    if (!settings_.dark_adu.empty()) {
+      ring_dark_.resize(static_cast<std::size_t>(g.count()) * ring_pixels_);
+      for (int iy = 0; iy < g.n_subap_y; ++iy)
+        for (int ix = 0; ix < g.n_subap_x; ++ix)
+          ring_dark_values(settings_.dark_adu, settings_.camera.width_px,
+                           Box{g.box_x0(ix), g.box_y0(iy), g.pitch_px, g.pitch_px},
+                           ring_dark_.data() + static_cast<std::size_t>(iy * g.n_subap_x + ix) * ring_pixels_);
+    }
     folded_dark_.resize(static_cast<std::size_t>(g.count()));
     for (int iy = 0; iy < g.n_subap_y; ++iy)
       for (int ix = 0; ix < g.n_subap_x; ++ix)
@@ -130,7 +139,12 @@ void Pipeline::measure_rows(const ImageView& image, int iy_begin, int iy_end, in
       const int i = row0 + ix;
       BorderStats& b = borders_[i];
       b = needs_pixels_ ? border_stats(strip.window(ix), lane.border)
-                        : border_stats_raw(image, s.dark_adu, Box{g.box_x0(ix), g.box_y0(iy), p, p}, lane.border);
+                        : border_stats_raw(image,
+                                           ring_dark_.empty()
+                                               ? std::span<const float>()
+                                               : std::span<const float>(ring_dark_).subspan(
+                                                     static_cast<std::size_t>(i) * ring_pixels_, ring_pixels_),
+                                           Box{g.box_x0(ix), g.box_y0(iy), p, p}, lane.border);
       const float level = subtract && b.finite ? b.level_adu : 0.0f;
       if (needs_pixels_ && level != 0.0f) subtract_constant(lane.strip.data() + ix * p, p, p, strip_width, level);
       if (folded_) {

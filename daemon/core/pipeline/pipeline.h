@@ -150,6 +150,8 @@ class Pipeline {
   SimdLevel simd_;
   RawColumnKernel kernel_;
   std::vector<FoldedDark> folded_dark_;  // per box (folded path)
+  std::vector<float> ring_dark_;         // per box, its ring's dark values in ring order (folded path)
+  int ring_pixels_ = 0;
   std::vector<Lane> lanes_;
   std::vector<BorderStats> borders_;     // one per box of the grid
   std::vector<SpotEstimate> estimates_;  // one per box of the grid
