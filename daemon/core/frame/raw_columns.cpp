@@ -31,9 +31,11 @@ template <typename Pixel>
       u += t;
       m = m > v ? m : v;
     }
+    const std::uint32_t hh = static_cast<std::uint32_t>(h);
+    const Lanes sy = hh * s - t, syy = hh * hh * s - 2 * hh * t + 2 * u - t;  // modulo 2^32, exact (header)
     std::memcpy(out.s + x, &s, sizeof s);
-    std::memcpy(out.t + x, &t, sizeof t);
-    std::memcpy(out.u + x, &u, sizeof u);
+    std::memcpy(out.sy + x, &sy, sizeof sy);
+    std::memcpy(out.syy + x, &syy, sizeof syy);
     std::memcpy(out.max + x, &m, sizeof m);
   }
   for (; x < w; ++x) {  // the last columns of a strip narrower than a multiple of 16
@@ -45,9 +47,10 @@ template <typename Pixel>
       u += t;
       m = m > v ? m : v;
     }
+    const std::uint32_t hh = static_cast<std::uint32_t>(h);
     out.s[x] = s;
-    out.t[x] = t;
-    out.u[x] = u;
+    out.sy[x] = hh * s - t;
+    out.syy[x] = hh * hh * s - 2 * hh * t + 2 * u - t;
     out.max[x] = m;
   }
 }

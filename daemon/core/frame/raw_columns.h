@@ -11,10 +11,12 @@
 //   sum y v   = H S - T,
 //   sum y^2 v = H^2 S - 2 H T + 2 U - T.
 //
-// No multiply in the pixel loop, exact in integers: U <= v_max H(H+1)(H+2)/6
-// must stay below 2^32, so H <= 72 for u16 (and 460 for u8): kMaxRawColumnHeight
-// below is the limit for both (the pipeline falls back to float correction
-// beyond it, and for u32 and f32 pixels).
+// No multiply in the pixel loop. After the last row the kernel forms
+// sum y v and sum y^2 v per column itself, in the same 32-bit lanes: unsigned
+// arithmetic wraps modulo 2^32, so the result is exact whenever the true
+// value fits, and sum y^2 v <= v_max (H-1)H(2H-1)/6 fits for H <= 56 with
+// u16 pixels (u8 allows more): kMaxRawColumnHeight below (the pipeline falls
+// back to float correction beyond it, and for u32 and f32 pixels).
 //
 // The loop sweeps 16 columns at a time with the 64 accumulators held over
 // the whole strip height, then stores them: one load per pixel and nothing
@@ -29,7 +31,7 @@
 
 namespace slopecast::core {
 
-inline constexpr int kMaxRawColumnHeight = 72;
+inline constexpr int kMaxRawColumnHeight = 56;
 
 // Whether frames of this format and strips of this height can use the
 // integer kernel exactly.
@@ -44,8 +46,8 @@ const char* simd_level_name(SimdLevel level);
 
 struct RawColumns {
   std::uint32_t* s;    // sum v
-  std::uint32_t* t;    // sum v (H - y)
-  std::uint32_t* u;    // sum v (H - y)(H - y + 1)/2
+  std::uint32_t* sy;   // sum y v
+  std::uint32_t* syy;  // sum y^2 v
   std::uint32_t* max;  // largest v
 };
 

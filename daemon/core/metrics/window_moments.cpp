@@ -47,19 +47,21 @@ WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const
   // most a few hundred of them).
   std::int64_t r00 = 0, r10 = 0, r20 = 0, r01 = 0, r11 = 0, r02 = 0;
   std::uint32_t peak = 0;
-  const std::int64_t hh = h;
+  const std::uint32_t* c_s = cols.s + x0;
+  const std::uint32_t* c_sy = cols.sy + x0;
+  const std::uint32_t* c_syy = cols.syy + x0;
+  const std::uint32_t* c_max = cols.max + x0;
   for (int x = 0; x < w; ++x) {
-    const std::int64_t s = cols.s[x0 + x], t = cols.t[x0 + x], u = cols.u[x0 + x];
-    const std::int64_t sy = hh * s - t;                          // sum y v
-    const std::int64_t syy = hh * hh * s - 2 * hh * t + 2 * u - t;  // sum y^2 v
-    r00 += s;
-    r10 += x * s;
-    r20 += static_cast<std::int64_t>(x) * x * s;
-    r01 += sy;
-    r11 += x * sy;
-    r02 += syy;
-    peak = peak > cols.max[x0 + x] ? peak : cols.max[x0 + x];
+    const std::int64_t xs = static_cast<std::int64_t>(x) * c_s[x];
+    r00 += c_s[x];
+    r10 += xs;
+    r20 += x * xs;
+    r01 += c_sy[x];
+    r11 += static_cast<std::int64_t>(x) * c_sy[x];
+    r02 += c_syy[x];
+    peak = peak > c_max[x] ? peak : c_max[x];
   }
+  (void)h;
   // The level's sums over the box geometry.
   const double sx = 0.5 * w * (w - 1.0), sy = 0.5 * h * (h - 1.0);
   const double sxx = (w - 1.0) * w * (2.0 * w - 1.0) / 6.0, syy = (h - 1.0) * h * (2.0 * h - 1.0) / 6.0;

@@ -64,7 +64,7 @@ Pipeline::Lane::Lane(const PipelineSettings& s, bool strip, bool raw_columns)
       strip_moments(static_cast<std::size_t>(s.grid.n_subap_x)),
       raw_box(static_cast<std::size_t>(s.grid.pitch_px) * s.grid.pitch_px) {
   if (raw_columns)
-    for (auto* v : {&col_s, &col_t, &col_u, &col_max})
+    for (auto* v : {&col_s, &col_sy, &col_syy, &col_max})
       v->assign(static_cast<std::size_t>(s.grid.n_subap_x) * s.grid.pitch_px, 0u);
 }
 
@@ -125,7 +125,7 @@ void Pipeline::measure_rows(const ImageView& image, int iy_begin, int iy_end, in
   const bool subtract = s.background == BackgroundMode::kBorder;
   const bool check_saturation = std::isfinite(saturation_adu_);
   const StripView strip{lane.strip.data(), p, p, g.n_subap_x, strip_width};
-  const RawColumns cols{lane.col_s.data(), lane.col_t.data(), lane.col_u.data(), lane.col_max.data()};
+  const RawColumns cols{lane.col_s.data(), lane.col_sy.data(), lane.col_syy.data(), lane.col_max.data()};
 
   for (int iy = iy_begin; iy < iy_end; ++iy) {
     const int row0 = iy * g.n_subap_x;

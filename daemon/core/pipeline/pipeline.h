@@ -140,7 +140,7 @@ class Pipeline {
     std::vector<float> border;               // one box's border ring
     MomentAccumulator moments;               // float path
     std::vector<WindowMoments> strip_moments;
-    std::vector<std::uint32_t> col_s, col_t, col_u, col_max;  // raw column sums (folded path)
+    std::vector<std::uint32_t> col_s, col_sy, col_syy, col_max;  // raw column sums (folded path)
     std::vector<float> raw_box;              // one box's raw pixels, to count saturated ones
   };
 
