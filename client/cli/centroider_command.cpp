@@ -46,16 +46,6 @@ std::optional<std::pair<std::string, core::OptionValue>> parse_assignment(const 
   return std::pair{key, core::OptionValue(value)};
 }
 
-std::string show(const v1::CentroiderOption& o) {
-  switch (o.value_case()) {
-    case v1::CentroiderOption::kNumber: return fmt::format("{}", o.number());
-    case v1::CentroiderOption::kFlag: return o.flag() ? "true" : "false";
-    case v1::CentroiderOption::kText: return fmt::format("\"{}\"", o.text());
-    case v1::CentroiderOption::VALUE_NOT_SET: break;
-  }
-  return "-";
-}
-
 void run_centroider(CentroiderOptions o) {
   const auto control_endpoint = resolve_control(kCmd, o.config, o.control);
   if (!control_endpoint) return;
@@ -88,7 +78,10 @@ void run_centroider(CentroiderOptions o) {
   std::cout << fmt::format("{} {}\n  settings generation {}{}\n", c.changed() ? "now" : "in force:", c.summary(),
                            c.settings_generation(), c.changed() ? " (measurements from the next frame on)" : "");
   std::cout << "  every option:\n";
-  for (const auto& opt : c.options()) std::cout << fmt::format("    {:<22} {}\n", opt.key(), show(opt));
+  for (const auto& opt : c.options()) {
+    const auto value = io::from_wire(opt);
+    std::cout << fmt::format("    {:<22} {}\n", opt.key(), value ? core::format_option(*value) : "-");
+  }
 }
 
 }  // namespace

@@ -57,7 +57,7 @@ struct Path {
   std::string name;
   std::vector<std::atomic<std::int64_t>> sent_ns;  // by seq; 0 = not sent (yet)
   std::vector<float> latency_us;                   // of frames received, in arrival order
-  std::uint64_t sent = 0, received = 0, duplicates = 0;
+  std::uint64_t sent = 0, received = 0;
   std::vector<bool> seen;
 };
 
@@ -78,26 +78,31 @@ void note(Path& p, std::uint64_t seq, std::uint64_t counted_from, std::int64_t a
   if (seq < counted_from || seq >= p.sent_ns.size()) return;
   const std::int64_t sent = p.sent_ns[seq].load(std::memory_order_acquire);
   if (sent == 0) return;
-  if (p.seen[seq]) {
-    ++p.duplicates;
-    return;
-  }
+  if (p.seen[seq]) return;  // a repeat: timed once
   p.seen[seq] = true;
   ++p.received;
   p.latency_us.push_back(static_cast<float>((arrived_ns - sent) * 1e-3));
 }
 
-void report(const Path& p, std::uint64_t counted) {
-  std::vector<float> l = p.latency_us;
+// A path's latency figures, us (nearest-rank percentiles); all 0 when
+// nothing came back.
+struct Latency {
+  float p50 = 0, p99 = 0, p999 = 0, max = 0;
+};
+Latency summarise(std::vector<float> l) {
+  if (l.empty()) return {};
   std::sort(l.begin(), l.end());
-  if (l.empty()) {
+  const std::span<const float> s(l);
+  return {core::nearest_rank(s, 0.5), core::nearest_rank(s, 0.99), core::nearest_rank(s, 0.999), l.back()};
+}
+
+void report(const Path& p, std::uint64_t counted, const Latency& l) {
+  if (p.latency_us.empty()) {
     std::cout << fmt::format("  {:<10} {:>7} {:>9} {:>7}      (nothing came back)\n", p.name, counted, 0, counted);
     return;
   }
-  const std::span<const float> s(l);
   std::cout << fmt::format("  {:<10} {:>7} {:>9} {:>7} {:>9.1f} {:>9.1f} {:>9.1f} {:>9.1f}\n", p.name, counted,
-                           p.received, counted - p.received, core::nearest_rank(s, 0.5), core::nearest_rank(s, 0.99),
-                           core::nearest_rank(s, 0.999), l.back());
+                           p.received, counted - p.received, l.p50, l.p99, l.p999, l.max);
 }
 
 void run_roundtrip(RoundtripOptions o) {
@@ -212,8 +217,12 @@ void run_roundtrip(RoundtripOptions o) {
   for (int i = 0; i < 50 && !stop_requested(); ++i) std::this_thread::sleep_for(std::chrono::milliseconds(20));
   done.store(true);
   receiver.join();
+  // Frames sent after the warm-up, per path.
+  auto counted = [&](const Path& p) {
+    return p.sent > static_cast<std::uint64_t>(o.warmup) ? p.sent - o.warmup : 0;
+  };
   std::uint64_t timed = 0;
-  for (const auto& p : paths) timed += p.sent > static_cast<std::uint64_t>(o.warmup) ? p.sent - o.warmup : 0;
+  for (const auto& p : paths) timed += counted(p);
   const double span = std::chrono::duration<double>(timed_until - timed_from).count();
   std::cout << fmt::format("\n{} frames per path at {} Hz ({} x {} {}), blocks of {} alternating, after {} warm-up frames;"
                            " latency = frame published here -> its answer received here, us\n",
@@ -223,17 +232,15 @@ void run_roundtrip(RoundtripOptions o) {
                            o.rate_hz);
   std::cout << fmt::format("  {:<10} {:>7} {:>9} {:>7} {:>9} {:>9} {:>9} {:>9}\n", "path", "sent", "received",
                            "lost", "p50", "p99", "p99.9", "max");
-  for (const auto& p : paths) report(p, p.sent > static_cast<std::uint64_t>(o.warmup) ? p.sent - o.warmup : 0);
-  if (o.relay && !paths[0].latency_us.empty() && !paths[1].latency_us.empty()) {
-    auto pct = [](std::vector<float> v, double q) {
-      std::sort(v.begin(), v.end());
-      return core::nearest_rank(std::span<const float>(v), q);
-    };
-    std::cout << fmt::format("  daemon / relay: p50 {:.2f}x  p99 {:.2f}x  p99.9 {:.2f}x\n",
-                             pct(paths[0].latency_us, 0.5) / pct(paths[1].latency_us, 0.5),
-                             pct(paths[0].latency_us, 0.99) / pct(paths[1].latency_us, 0.99),
-                             pct(paths[0].latency_us, 0.999) / pct(paths[1].latency_us, 0.999));
+  std::vector<Latency> figures;
+  for (const auto& p : paths) {
+    figures.push_back(summarise(p.latency_us));
+    report(p, counted(p), figures.back());
   }
+  if (o.relay && !paths[0].latency_us.empty() && !paths[1].latency_us.empty())
+    std::cout << fmt::format("  daemon / relay: p50 {:.2f}x  p99 {:.2f}x  p99.9 {:.2f}x\n",
+                             figures[0].p50 / figures[1].p50, figures[0].p99 / figures[1].p99,
+                             figures[0].p999 / figures[1].p999);
   if (stop_requested()) std::cout << "(interrupted: the figures cover what was sent)\n";
 }
 

@@ -78,17 +78,12 @@ std::string choices(const std::array<Named, N>& names) {
   return out;
 }
 
-std::string show(const OptionValue& v) {
-  if (const double* d = std::get_if<double>(&v)) return fmt::format("{}", *d);
-  if (const bool* b = std::get_if<bool>(&v)) return *b ? "true" : "false";
-  return fmt::format("\"{}\"", std::get<std::string>(v));
-}
 
 // Typed readers: each returns an error sentence or sets out.
 std::string read_number(std::string_view key, const OptionValue& v, double lo, double hi, bool lo_open,
                         double& out) {
   const double* d = std::get_if<double>(&v);
-  if (!d) return fmt::format("{}: expected a number, got {}", key, show(v));
+  if (!d) return fmt::format("{}: expected a number, got {}", key, format_option(v));
   const bool ok = std::isfinite(*d) && (lo_open ? *d > lo : *d >= lo) && *d <= hi;
   if (!ok)
     return fmt::format("{}: must be {} {}{}, got {}", key, lo_open ? ">" : ">=", lo,
@@ -99,7 +94,7 @@ std::string read_number(std::string_view key, const OptionValue& v, double lo, d
 
 std::string read_int(std::string_view key, const OptionValue& v, int lo, int hi, int& out) {
   const double* d = std::get_if<double>(&v);
-  if (!d || *d != std::floor(*d)) return fmt::format("{}: expected a whole number, got {}", key, show(v));
+  if (!d || *d != std::floor(*d)) return fmt::format("{}: expected a whole number, got {}", key, format_option(v));
   if (*d < lo || *d > hi) return fmt::format("{}: must be {}..{}, got {}", key, lo, hi, *d);
   out = static_cast<int>(*d);
   return {};
@@ -107,7 +102,7 @@ std::string read_int(std::string_view key, const OptionValue& v, int lo, int hi,
 
 std::string read_bool(std::string_view key, const OptionValue& v, bool& out) {
   const bool* b = std::get_if<bool>(&v);
-  if (!b) return fmt::format("{}: expected true or false, got {}", key, show(v));
+  if (!b) return fmt::format("{}: expected true or false, got {}", key, format_option(v));
   out = *b;
   return {};
 }
@@ -121,7 +116,7 @@ std::string read_enum(std::string_view key, const OptionValue& v, const std::arr
         out = static_cast<E>(n.value);
         return {};
       }
-  return fmt::format("{}: expected one of {}, got {}", key, choices(names), show(v));
+  return fmt::format("{}: expected one of {}, got {}", key, choices(names), format_option(v));
 }
 
 constexpr double kInf = HUGE_VAL;
@@ -141,6 +136,12 @@ bool reads(std::string_view methods, std::string_view method) {
 }  // namespace
 
 const std::span<const CentroiderOption> kCentroiderOptions(kOptions);
+
+std::string format_option(const OptionValue& v) {
+  if (const double* d = std::get_if<double>(&v)) return fmt::format("{}", *d);
+  if (const bool* b = std::get_if<bool>(&v)) return *b ? "true" : "false";
+  return fmt::format("\"{}\"", std::get<std::string>(v));
+}
 
 std::string_view centroider_name(CentroiderKind kind) { return name_of(kMethodNames, static_cast<int>(kind)); }
 
@@ -166,7 +167,7 @@ std::string apply_option(CentroiderSettings& s, std::string_view key, const Opti
   if (key == "reference") return read_enum(key, v, kReferenceNames, s.reference);
   if (key == "reference_file") {
     const std::string* p = std::get_if<std::string>(&v);
-    if (!p) return fmt::format("reference_file: expected a path, got {}", show(v));
+    if (!p) return fmt::format("reference_file: expected a path, got {}", format_option(v));
     s.reference_file = *p;
     return {};
   }
@@ -210,7 +211,7 @@ std::string describe(const CentroiderSettings& s) {
                                  [&](const CentroiderOption& o) { return o.key == key; });
     if (!reads(it->methods, method)) continue;
     if (key == "reference_file" && s.reference != ReferenceSource::kFile) continue;
-    out += fmt::format("{}{} = {}", out.empty() ? "" : ", ", key, show(value));
+    out += fmt::format("{}{} = {}", out.empty() ? "" : ", ", key, format_option(value));
   }
   return out.empty() ? std::string(method) : fmt::format("{} ({})", method, out);
 }

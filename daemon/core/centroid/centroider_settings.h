@@ -89,6 +89,9 @@ extern const std::span<const CentroiderOption> kCentroiderOptions;
 // otherwise a sentence naming the key, what it wants and what it got.
 std::string apply_option(CentroiderSettings& s, std::string_view key, const OptionValue& value);
 
+// A value as written in the config: 2.5, true, "wcog".
+std::string format_option(const OptionValue& value);
+
 // Every option's current value, in kCentroiderOptions order, "method" first.
 std::vector<std::pair<std::string, OptionValue>> list_options(const CentroiderSettings& s);
 

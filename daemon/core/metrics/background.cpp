@@ -12,6 +12,22 @@ namespace slopecast::core {
 namespace {
 const float kRoundingSigma = static_cast<float>(1.0 / std::sqrt(12.0));
 
+// Visits a box's ring pixels in ring order: f(x, y), box-local.
+template <typename F>
+void for_ring(int w, int h, F f) {
+  if (w < 3 || h < 3) {
+    for (int y = 0; y < h; ++y)
+      for (int x = 0; x < w; ++x) f(x, y);
+    return;
+  }
+  for (int x = 0; x < w; ++x) f(x, 0);
+  for (int x = 0; x < w; ++x) f(x, h - 1);
+  for (int y = 1; y < h - 1; ++y) {
+    f(0, y);
+    f(w - 1, y);
+  }
+}
+
 // Median of v (reorders it). Even counts take the mean of the two middle values.
 float median_of(float* v, int n) {
   const int mid = n / 2;
@@ -181,38 +197,11 @@ BorderStats border_stats(const WindowView& w, std::span<float> scratch) {
   assert(scratch.size() >= 2 * static_cast<std::size_t>(n) + 8);
   float* ring = scratch.data();  // the ring's values, in ring order
   int k = 0;
-  auto row = [&](int y) { return w.data + static_cast<std::size_t>(y) * w.stride; };
-  if (w.width < 3 || w.height < 3) {
-    for (int y = 0; y < w.height; ++y)
-      for (int x = 0; x < w.width; ++x) ring[k++] = row(y)[x];
-  } else {
-    for (int x = 0; x < w.width; ++x) ring[k++] = row(0)[x];
-    for (int x = 0; x < w.width; ++x) ring[k++] = row(w.height - 1)[x];
-    for (int y = 1; y < w.height - 1; ++y) {
-      ring[k++] = row(y)[0];
-      ring[k++] = row(y)[w.width - 1];
-    }
-  }
+  for_ring(w.width, w.height, [&](int x, int y) { ring[k++] = w.data[static_cast<std::size_t>(y) * w.stride + x]; });
   return ring_stats(ring, n, ring + n);
 }
 
 namespace {
-// Visits a box's ring pixels in ring order: f(x, y), box-local.
-template <typename F>
-void for_ring(int w, int h, F f) {
-  if (w < 3 || h < 3) {
-    for (int y = 0; y < h; ++y)
-      for (int x = 0; x < w; ++x) f(x, y);
-    return;
-  }
-  for (int x = 0; x < w; ++x) f(x, 0);
-  for (int x = 0; x < w; ++x) f(x, h - 1);
-  for (int y = 1; y < h - 1; ++y) {
-    f(0, y);
-    f(w - 1, y);
-  }
-}
-
 template <typename T>
 void gather_ring(const ImageView& image, const float* ring_dark, const Box& box, float* ring) {
   int k = 0;
