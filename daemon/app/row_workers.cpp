@@ -17,10 +17,10 @@ RowWorkers::~RowWorkers() {
 }
 
 void RowWorkers::band(int lane) {
-  const int rows = pipeline_->settings().grid.n_subap_y;
+  const int rows = pipeline_->run_count();
   const int per = (rows + threads_ - 1) / threads_;
   const int begin = std::min(rows, lane * per), end = std::min(rows, begin + per);
-  if (begin < end) pipeline_->measure_rows(image_, begin, end, lane);
+  if (begin < end) pipeline_->measure_runs(image_, begin, end, lane);
 }
 
 void RowWorkers::helper(int lane) {

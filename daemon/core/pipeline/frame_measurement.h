@@ -24,6 +24,7 @@ enum SubapertureFlag : std::uint32_t {
   kFlagElongated = 1u << 8,   // ellipticity above max_ellipticity
   kFlagMethodFailed = 1u << 9,// the method placed the spot but does not vouch for it (see SpotEstimate::failed)
   kFlagNarrow = 1u << 10,     // FWHM (larger axis) below min_fwhm_px: a hot pixel or a cosmic ray, not a spot
+  kFlagMasked = 1u << 11,     // excluded by the valid map (outside the pupil, vignetted): never valid
 };
 
 // Bits of FrameMeasurement::health; 0 means a controller may act on the
@@ -32,13 +33,14 @@ enum FrameHealthBit : std::uint32_t {
   kHealthOk = 0,
   kHealthSaturated = 1u << 0,  // at least one subaperture holds a saturated pixel
   kHealthNoLight = 1u << 1,    // no subaperture has significant light (all low flux / low SNR)
-  kHealthFewValid = 1u << 2,   // fewer valid subapertures than min_valid_fraction of the grid
+  kHealthFewValid = 1u << 2,   // fewer valid subapertures than min_valid_fraction of those in the valid map
   kHealthNonFinite = 1u << 3,  // a NaN/infinite pixel somewhere in the grid
 };
 
 struct FrameMeasurement {
-  // Per subaperture, index iy*n_subap_x + ix. Slopes in px from the zero
-  // point, positive toward larger x / y; exactly 0 where invalid.
+  // Per subaperture, index iy*n_subap_x + ix. Slopes in px from the
+  // reference point (minus the reference slopes, when set), positive toward
+  // larger x / y; exactly 0 where invalid.
   std::vector<float> slope_x_px;
   std::vector<float> slope_y_px;
   // Sum of corrected pixels in the box: raw - dark - background, ADU.

@@ -25,7 +25,24 @@ double full_scale_adu(PixelFormat format) {
 
 std::string validate(const PipelineSettings& s) {
   if (auto e = validate(s.camera); !e.empty()) return e;
-  if (auto e = validate(s.grid, s.camera); !e.empty()) return e;
+  if (s.layout.empty()) {
+    if (auto e = validate(s.grid, s.camera); !e.empty()) return e;
+  } else {
+    if (s.grid.n_subap_x < 1 || s.grid.n_subap_y < 1 || s.grid.pitch_px < 2)
+      return fmt::format("the grid shape must be at least 1 x 1 subapertures of 2 px, got {} x {} of {} px",
+                         s.grid.n_subap_x, s.grid.n_subap_y, s.grid.pitch_px);
+    if (auto e = validate_layout(s.layout, s.grid, s.camera); !e.empty()) return e;
+  }
+  const auto n = static_cast<std::size_t>(s.grid.count());
+  if (s.reference_slope_x_px.size() != s.reference_slope_y_px.size() ||
+      (!s.reference_slope_x_px.empty() && s.reference_slope_x_px.size() != n))
+    return fmt::format("reference slopes must be one x and one y per subaperture ({}), got {} x and {} y", n,
+                       s.reference_slope_x_px.size(), s.reference_slope_y_px.size());
+  for (std::size_t i = 0; i < s.reference_slope_x_px.size(); ++i)
+    if (!std::isfinite(s.reference_slope_x_px[i]) || !std::isfinite(s.reference_slope_y_px[i]))
+      return fmt::format("reference slope of subaperture {} is not finite", i);
+  if (!s.valid_map.empty() && s.valid_map.size() != n)
+    return fmt::format("the valid map has {} entries, the grid {} subapertures", s.valid_map.size(), n);
   const std::size_t pixels = static_cast<std::size_t>(s.camera.width_px) * s.camera.height_px;
   if (!s.dark_adu.empty() && s.dark_adu.size() != pixels)
     return fmt::format("dark frame has {} pixels, the camera has {} ({} x {})", s.dark_adu.size(),
@@ -55,21 +72,23 @@ std::string validate(const PipelineSettings& s) {
   return {};
 }
 
-Pipeline::Lane::Lane(const PipelineSettings& s, bool strip, bool raw_columns)
+Pipeline::Lane::Lane(const PipelineSettings& s, int max_run, bool strip, bool raw_columns)
     : centroider(make_centroider(s.centroider, s.grid.pitch_px)),
-      strip(strip ? static_cast<std::size_t>(s.grid.pitch_px) * s.grid.n_subap_x * s.grid.pitch_px : 0),
-      column_max(static_cast<std::size_t>(s.grid.n_subap_x) * s.grid.pitch_px),
+      strip(strip ? static_cast<std::size_t>(s.grid.pitch_px) * max_run * s.grid.pitch_px : 0),
+      column_max(static_cast<std::size_t>(max_run) * s.grid.pitch_px),
       border(static_cast<std::size_t>(border_scratch_size(s.grid.pitch_px, s.grid.pitch_px))),
-      moments(s.grid.n_subap_x * s.grid.pitch_px),
-      strip_moments(static_cast<std::size_t>(s.grid.n_subap_x)),
+      moments(max_run * s.grid.pitch_px),
+      strip_moments(static_cast<std::size_t>(max_run)),
       raw_box(static_cast<std::size_t>(s.grid.pitch_px) * s.grid.pitch_px) {
   if (raw_columns)
     for (auto* v : {&col_s, &col_sy, &col_syy, &col_max})
-      v->assign(static_cast<std::size_t>(s.grid.n_subap_x) * s.grid.pitch_px, 0u);
+      v->assign(static_cast<std::size_t>(max_run) * s.grid.pitch_px, 0u);
 }
 
 Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel> simd)
     : settings_(std::move(settings)),
+      boxes_(settings_.layout.empty() ? regular_layout(settings_.grid) : settings_.layout),
+      runs_(box_runs(boxes_)),
       folded_(raw_columns_exact(settings_.camera.format, settings_.grid.pitch_px)),
       needs_pixels_(settings_.centroider.kind != CentroiderKind::kCog || !folded_),
       simd_(simd.value_or(best_simd_level())),
@@ -84,24 +103,30 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
       saturation_adu_(static_cast<float>(settings_.saturation_adu.value_or(full_scale_adu(settings_.camera.format)))) {
   assert(validate(settings_).empty());
   assert(lanes >= 1);
-  for (int i = 0; i < lanes; ++i) lanes_.emplace_back(settings_, needs_pixels_, folded_);
+  int max_run = 1;
+  for (const BoxRun& r : runs_) max_run = std::max(max_run, r.count);
+  for (int i = 0; i < lanes; ++i) lanes_.emplace_back(settings_, max_run, needs_pixels_, folded_);
+  const std::size_t n = boxes_.size();
+  offset_x_.resize(n);
+  offset_y_.resize(n);
+  for (std::size_t i = 0; i < n; ++i) {
+    const SubapertureBox& b = boxes_[i];
+    const bool rs = !settings_.reference_slope_x_px.empty();
+    offset_x_[i] = b.x0 - b.ref_x - (rs ? settings_.reference_slope_x_px[i] : 0.0);
+    offset_y_[i] = b.y0 - b.ref_y - (rs ? settings_.reference_slope_y_px[i] : 0.0);
+  }
   if (folded_) {
-    const LensletGrid& g = settings_.grid;
-    ring_pixels_ = border_pixel_count(g.pitch_px, g.pitch_px);
+    const int p = settings_.grid.pitch_px;
+    ring_pixels_ = border_pixel_count(p, p);
     if (!settings_.dark_adu.empty()) {
-      ring_dark_.resize(static_cast<std::size_t>(g.count()) * ring_pixels_);
-      for (int iy = 0; iy < g.n_subap_y; ++iy)
-        for (int ix = 0; ix < g.n_subap_x; ++ix)
-          ring_dark_values(settings_.dark_adu, settings_.camera.width_px,
-                           Box{g.box_x0(ix), g.box_y0(iy), g.pitch_px, g.pitch_px},
-                           ring_dark_.data() + static_cast<std::size_t>(iy * g.n_subap_x + ix) * ring_pixels_);
+      ring_dark_.resize(n * ring_pixels_);
+      for (std::size_t i = 0; i < n; ++i)
+        ring_dark_values(settings_.dark_adu, settings_.camera.width_px, Box{boxes_[i].x0, boxes_[i].y0, p, p},
+                         ring_dark_.data() + i * ring_pixels_);
     }
-    folded_dark_.resize(static_cast<std::size_t>(g.count()));
-    for (int iy = 0; iy < g.n_subap_y; ++iy)
-      for (int ix = 0; ix < g.n_subap_x; ++ix)
-        folded_dark_[static_cast<std::size_t>(iy) * g.n_subap_x + ix] =
-            fold_dark(settings_.dark_adu, settings_.camera.width_px, g.box_x0(ix), g.box_y0(iy), g.pitch_px,
-                      g.pitch_px);
+    folded_dark_.resize(n);
+    for (std::size_t i = 0; i < n; ++i)
+      folded_dark_[i] = fold_dark(settings_.dark_adu, settings_.camera.width_px, boxes_[i].x0, boxes_[i].y0, p, p);
   }
 }
 
@@ -112,31 +137,31 @@ FrameMeasurement Pipeline::make_measurement() const {
 }
 
 void Pipeline::measure(const ImageView& image, FrameMeasurement& out) {
-  measure_rows(image, 0, settings_.grid.n_subap_y, 0);
+  measure_runs(image, 0, run_count(), 0);
   finish(out);
 }
 
-void Pipeline::measure_rows(const ImageView& image, int iy_begin, int iy_end, int lane_index) {
-  const LensletGrid& g = settings_.grid;
+void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, int lane_index) {
   const PipelineSettings& s = settings_;
   Lane& lane = lanes_[static_cast<std::size_t>(lane_index)];
-  const int p = g.pitch_px;
-  const int strip_width = g.n_subap_x * p;
+  const int p = s.grid.pitch_px;
   const bool subtract = s.background == BackgroundMode::kBorder;
   const bool check_saturation = std::isfinite(saturation_adu_);
-  const StripView strip{lane.strip.data(), p, p, g.n_subap_x, strip_width};
   const RawColumns cols{lane.col_s.data(), lane.col_sy.data(), lane.col_syy.data(), lane.col_max.data()};
 
-  for (int iy = iy_begin; iy < iy_end; ++iy) {
-    const int row0 = iy * g.n_subap_x;
-    const Box strip_box{g.origin_x_px, g.box_y0(iy), strip_width, p};
+  for (int r = run_begin; r < run_end; ++r) {
+    const int row0 = runs_[r].first, n_boxes = runs_[r].count;
+    const int strip_width = n_boxes * p;
+    const StripView strip{lane.strip.data(), p, p, n_boxes, strip_width};
+    const Box strip_box{boxes_[row0].x0, boxes_[row0].y0, strip_width, p};
     // Pixels: integer column sums (folded path), and the corrected strip
     // where the method reads pixels or the frame cannot be folded.
     if (folded_) kernel_(image, strip_box.x0, strip_box.y0, strip_width, p, cols);
     if (needs_pixels_)
       correct_box(image, s.dark_adu, strip_box, lane.strip, folded_ ? std::span<float>() : std::span<float>(lane.column_max));
-    for (int ix = 0; ix < g.n_subap_x; ++ix) {
+    for (int ix = 0; ix < n_boxes; ++ix) {
       const int i = row0 + ix;
+      const Box box{boxes_[i].x0, boxes_[i].y0, p, p};
       BorderStats& b = borders_[i];
       b = needs_pixels_ ? border_stats(strip.window(ix), lane.border)
                         : border_stats_raw(image,
@@ -144,7 +169,7 @@ void Pipeline::measure_rows(const ImageView& image, int iy_begin, int iy_end, in
                                                ? std::span<const float>()
                                                : std::span<const float>(ring_dark_).subspan(
                                                      static_cast<std::size_t>(i) * ring_pixels_, ring_pixels_),
-                                           Box{g.box_x0(ix), g.box_y0(iy), p, p}, lane.border);
+                                           box, lane.border);
       const float level = subtract && b.finite ? b.level_adu : 0.0f;
       if (needs_pixels_ && level != 0.0f) subtract_constant(lane.strip.data() + ix * p, p, p, strip_width, level);
       if (folded_) {
@@ -159,40 +184,38 @@ void Pipeline::measure_rows(const ImageView& image, int iy_begin, int iy_end, in
       // Rare: only a box that reached the level is read again, raw, to count
       // its saturated pixels.
       if (check_saturation && raw_max_[i] >= saturation_adu_) {
-        correct_box(image, {}, Box{g.box_x0(ix), g.box_y0(iy), p, p}, lane.raw_box);
+        correct_box(image, {}, box, lane.raw_box);
         saturated_pixels_[i] = static_cast<std::uint32_t>(
             std::count_if(lane.raw_box.begin(), lane.raw_box.end(), [&](float v) { return v >= saturation_adu_; }));
       }
     }
     if (!folded_) {
       lane.moments.strip(strip, lane.strip_moments);
-      for (int ix = 0; ix < g.n_subap_x; ++ix) {
+      for (int ix = 0; ix < n_boxes; ++ix) {
         WindowMoments m = lane.strip_moments[ix];
         m.peak = raw_max_[row0 + ix];  // published peak: the raw maximum, as on the folded path
         contexts_[row0 + ix].moments = m;
       }
     }
-    const auto ctx = std::span<const WindowContext>(contexts_).subspan(row0, g.n_subap_x);
-    const auto est = std::span<SpotEstimate>(estimates_).subspan(row0, g.n_subap_x);
+    const auto ctx = std::span<const WindowContext>(contexts_).subspan(row0, n_boxes);
+    const auto est = std::span<SpotEstimate>(estimates_).subspan(row0, n_boxes);
     if (needs_pixels_) {
       lane.centroider->measure_strip(strip, ctx, est);
     } else {
       const WindowView none{};
-      for (int ix = 0; ix < g.n_subap_x; ++ix) est[ix] = lane.centroider->measure(none, ctx[ix]);
+      for (int ix = 0; ix < n_boxes; ++ix) est[ix] = lane.centroider->measure(none, ctx[ix]);
     }
   }
 }
 
 void Pipeline::finish(FrameMeasurement& out) {
-  assert(out.size() == settings_.grid.count());
+  assert(out.size() == static_cast<int>(boxes_.size()));
   decide(out);
 }
 
 void Pipeline::decide(FrameMeasurement& out) {
-  const LensletGrid& g = settings_.grid;
   const PipelineSettings& s = settings_;
-  const int p = g.pitch_px;
-  const double centre = 0.5 * (p - 1);             // box centre, window-local px
+  const int p = s.grid.pitch_px;
   const double edge_lo = -0.5, edge_hi = p - 0.5;  // box edges, window-local px
   const bool check_edge = s.edge_margin_px > 0.0 && p >= 2.0 * s.edge_margin_px + 2.0;
   const double near_lo = edge_lo + s.edge_margin_px, near_hi = edge_hi - s.edge_margin_px;
@@ -217,9 +240,11 @@ void Pipeline::decide(FrameMeasurement& out) {
   }
 
   double sum_x2 = 0.0, sum_y2 = 0.0, sum_flux = 0.0, total_flux = 0.0;
-  int n_valid = 0, n_saturated = 0, n_lit = 0;
+  int n_valid = 0, n_saturated = 0, n_lit = 0, n_in_map = 0;
   bool any_non_finite = false;
-  for (int i = 0; i < g.count(); ++i) {
+  const int n_boxes = static_cast<int>(boxes_.size());
+  for (int i = 0; i < n_boxes; ++i) {
+    const bool in_map = s.valid_map.empty() || s.valid_map[i] != 0;
     const SpotEstimate& e = estimates_[i];
     const WindowMoments& m = contexts_[i].moments;
     const BorderStats& b = borders_[i];
@@ -241,7 +266,7 @@ void Pipeline::decide(FrameMeasurement& out) {
     out.fwhm_y_px[i] = static_cast<float>(std::min(fwhm_y, 1e9));
     out.ellipticity[i] = static_cast<float>(shape.ellipticity);
     out.quality[i] = finite ? quality : 0.0f;
-    std::uint32_t flags = kFlagNone;
+    std::uint32_t flags = in_map ? kFlagNone : kFlagMasked;
     if (!finite || (m.flux > 0.0 && !placed)) flags |= kFlagNonFinite;
     if (finite && !(m.flux >= s.min_flux_adu && m.flux > 0.0)) flags |= kFlagLowFlux;
     if (finite && s.min_snr > 0.0 && snr < s.min_snr) flags |= kFlagLowSnr;
@@ -258,16 +283,21 @@ void Pipeline::decide(FrameMeasurement& out) {
     if (check_saturation && raw_max_[i] >= saturation_adu_) flags |= kFlagSaturated;
     out.saturated_pixels[i] = check_saturation ? saturated_pixels_[i] : 0;
     out.flags[i] = flags;
-    any_non_finite |= !finite;
-    if (finite) total_flux += m.flux;
-    if (flags & kFlagSaturated) ++n_saturated;
-    if (!(flags & (kFlagLowFlux | kFlagLowSnr | kFlagNonFinite))) ++n_lit;
+    // Frame figures count the subapertures in the valid map only: light
+    // outside the pupil says nothing about the wavefront.
+    if (in_map) {
+      ++n_in_map;
+      any_non_finite |= !finite;
+      if (finite) total_flux += m.flux;
+      if (flags & kFlagSaturated) ++n_saturated;
+      if (!(flags & (kFlagLowFlux | kFlagLowSnr | kFlagNonFinite))) ++n_lit;
+    }
     if (flags != kFlagNone) {
       out.slope_x_px[i] = 0.0f;
       out.slope_y_px[i] = 0.0f;
       continue;
     }
-    const double sx = e.x - centre, sy = e.y - centre;
+    const double sx = e.x + offset_x_[i], sy = e.y + offset_y_[i];
     out.slope_x_px[i] = static_cast<float>(sx);
     out.slope_y_px[i] = static_cast<float>(sy);
     sum_x2 += sx * sx;
@@ -290,29 +320,29 @@ void Pipeline::decide(FrameMeasurement& out) {
   std::uint32_t health = kHealthOk;
   if (n_saturated > 0) health |= kHealthSaturated;
   if (n_lit == 0) health |= kHealthNoLight;
-  if (n_valid < s.min_valid_fraction * g.count()) health |= kHealthFewValid;
+  if (n_valid < s.min_valid_fraction * n_in_map) health |= kHealthFewValid;
   if (any_non_finite) health |= kHealthNonFinite;
   out.health = health;
 }
 
 std::variant<std::vector<float>, std::string> Pipeline::capture_reference(const ImageView& image,
                                                                           const FrameMeasurement& measured) const {
-  const LensletGrid& g = settings_.grid;
-  const int p = g.pitch_px;
+  const int p = settings_.grid.pitch_px;
   std::vector<float> box(static_cast<std::size_t>(p) * p), ring(static_cast<std::size_t>(border_scratch_size(p, p)));
   std::vector<double> sum(box.size(), 0.0);
   std::vector<int> count(box.size(), 0);
   int used = 0;
-  for (int iy = 0; iy < g.n_subap_y; ++iy)
-    for (int ix = 0; ix < g.n_subap_x; ++ix) {
-      const int i = iy * g.n_subap_x + ix;
+  for (std::size_t i = 0; i < boxes_.size(); ++i) {
       if (measured.flags[i] != kFlagNone) continue;
-      correct_box(image, settings_.dark_adu, Box{g.box_x0(ix), g.box_y0(iy), p, p}, box);
+      correct_box(image, settings_.dark_adu, Box{boxes_[i].x0, boxes_[i].y0, p, p}, box);
       const WindowView w{box.data(), p, p, p};
       const BorderStats b = border_stats(w, ring);
       const float level = settings_.background == BackgroundMode::kBorder && b.finite ? b.level_adu : 0.0f;
-      const int dx = static_cast<int>(std::lround(measured.slope_x_px[i]));
-      const int dy = static_cast<int>(std::lround(measured.slope_y_px[i]));
+      // The spot's offset from the box centre (its slope is measured from the
+      // reference point, which need not be the centre).
+      const double centre = 0.5 * (p - 1);
+      const int dx = static_cast<int>(std::lround(measured.slope_x_px[i] - offset_x_[i] - centre));
+      const int dy = static_cast<int>(std::lround(measured.slope_y_px[i] - offset_y_[i] - centre));
       for (int y = 0; y < p; ++y)
         for (int x = 0; x < p; ++x) {
           const int sx = x + dx, sy = y + dy;  // the pixel that lands on (x, y)

@@ -35,12 +35,26 @@
 #include "daemon/core/pipeline/frame_measurement.h"
 #include "daemon/core/frame/image_view.h"
 #include "daemon/core/geometry/sensor_geometry.h"
+#include "daemon/core/geometry/subaperture_layout.h"
 
 namespace slopecast::core {
 
 struct PipelineSettings {
   CameraSpec camera;
+  // The grid's shape and box side; its origin places the boxes only when
+  // `layout` is empty.
   LensletGrid grid;
+  // Per-subaperture boxes and reference points (subaperture_layout.h), in
+  // index order; empty: regular_layout(grid), box centres as zero points.
+  std::vector<SubapertureBox> layout;
+  // Reference slopes, px, per subaperture: subtracted from every published
+  // slope (the mean slopes of the reference source, taken by calibration).
+  // Both empty, or both one per subaperture.
+  std::vector<float> reference_slope_x_px;
+  std::vector<float> reference_slope_y_px;
+  // Valid map, one per subaperture: 0 excludes the subaperture for good
+  // (outside the pupil, vignetted), flagged kFlagMasked; empty: all in.
+  std::vector<std::uint8_t> valid_map;
   // Dark frame, ADU, row-major camera.width_px * camera.height_px values; empty
   // for none. Subtracted from every frame before centroiding.
   std::vector<float> dark_adu;
@@ -89,7 +103,7 @@ std::string validate(const PipelineSettings& settings);
 class Pipeline {
  public:
   // Precondition: validate(settings) is empty. lanes: how many threads may
-  // call measure_rows() at once (each lane has its own scratch). simd: the
+  // call measure_runs() at once (each lane has its own scratch). simd: the
   // kernels' instruction set (default: the best this CPU runs; tests force
   // each).
   explicit Pipeline(PipelineSettings settings, int lanes = 1, std::optional<SimdLevel> simd = std::nullopt);
@@ -102,14 +116,17 @@ class Pipeline {
   // out came from make_measurement().
   void measure(const ImageView& image, FrameMeasurement& out);
 
-  // measure() in parts, for several threads: pass 1 over subaperture rows
-  // [iy_begin, iy_end) with lane `lane`'s scratch (distinct lanes may run at
-  // once on disjoint rows; they share no writable memory), then finish()
-  // once every row is done. measure() is measure_rows(all rows, lane 0) +
-  // finish().
-  void measure_rows(const ImageView& image, int iy_begin, int iy_end, int lane);
+  // measure() in parts, for several threads: pass 1 over the box runs
+  // [run_begin, run_end) (subaperture_layout.h; a regular grid's runs are
+  // its rows) with lane `lane`'s scratch (distinct lanes may run at once on
+  // disjoint runs; they share no writable memory), then finish() once every
+  // run is done. measure() is measure_runs(all runs, lane 0) + finish().
+  void measure_runs(const ImageView& image, int run_begin, int run_end, int lane);
   void finish(FrameMeasurement& out);
   int lanes() const { return static_cast<int>(lanes_.size()); }
+  int run_count() const { return static_cast<int>(runs_.size()); }
+  // The boxes in force (settings().layout, or the grid's regular layout).
+  const std::vector<SubapertureBox>& boxes() const { return boxes_; }
   // Whether u8/u16 pixels go through the integer column sums (the folded
   // path), and whether the method reads corrected pixels.
   bool folded() const { return folded_; }
@@ -133,7 +150,7 @@ class Pipeline {
 
   // One thread's scratch.
   struct Lane {
-    Lane(const PipelineSettings& s, bool strip, bool raw_columns);
+    Lane(const PipelineSettings& s, int max_run, bool strip, bool raw_columns);
     std::unique_ptr<Centroider> centroider;
     std::vector<float> strip;                // one corrected row of boxes (when pixels are read)
     std::vector<float> column_max;           // raw maximum of each strip column (float path)
@@ -145,6 +162,9 @@ class Pipeline {
   };
 
   PipelineSettings settings_;
+  std::vector<SubapertureBox> boxes_;
+  std::vector<BoxRun> runs_;
+  std::vector<double> offset_x_, offset_y_;  // per box: x0 - ref_x - reference slope (slope = local centroid + offset)
   bool folded_;
   bool needs_pixels_;
   SimdLevel simd_;

@@ -168,9 +168,9 @@ TEST_CASE("rows measured on several lanes give exactly what one lane gives", "[f
     core::Pipeline one(f.u16), three(f.u16, 3);
     auto a = one.make_measurement(), b = three.make_measurement();
     one.measure(f.u16_view(), a);
-    three.measure_rows(f.u16_view(), 0, 4, 0);
-    three.measure_rows(f.u16_view(), 7, 10, 2);  // any order
-    three.measure_rows(f.u16_view(), 4, 7, 1);
+    three.measure_runs(f.u16_view(), 0, 4, 0);
+    three.measure_runs(f.u16_view(), 7, 10, 2);  // any order
+    three.measure_runs(f.u16_view(), 4, 7, 1);
     three.finish(b);
     CHECK(a.slope_x_px == b.slope_x_px);
     CHECK(a.slope_y_px == b.slope_y_px);
