@@ -1,5 +1,6 @@
 // Copying a box of a raw frame (in the pipeline: one row of subapertures)
-// into float pixels, correcting it on the way: corrected = raw - dark.
+// into float pixels, correcting it on the way: corrected = (raw - dark) *
+// gain, gain = 1 / flat (0 at a bad pixel, which the pipeline then fills).
 //
 // This is the only place raw pixels are read. Each grid pixel is read once
 // per frame, and the corrected strip stays hot in L1 cache for the centroider
@@ -20,14 +21,15 @@ struct Box {
   int height = 0;
 };
 
-// Writes box of image, minus dark where given, to out (row-major, stride
-// box.width floats). When raw_column_max is not empty it also receives, per
-// box column, the largest raw pixel value (before the dark), for the
-// saturation check. Preconditions: box lies inside image; out.size() >=
-// box.width*box.height; dark is empty or has image.width*image.height values
-// (row-major, ADU); raw_column_max is empty or has >= box.width entries.
+// Writes box of image, minus dark and times gain where given, to out
+// (row-major, stride box.width floats). When raw_column_max is not empty it
+// also receives, per box column, the largest raw pixel value (before the
+// dark) among pixels whose gain is not 0, for the saturation check.
+// Preconditions: box lies inside image; out.size() >= box.width*box.height;
+// dark and gain are each empty or have image.width*image.height values
+// (row-major); raw_column_max is empty or has >= box.width entries.
 // Allocation-free.
 void correct_box(const ImageView& image, std::span<const float> dark, const Box& box,
-                 std::span<float> out, std::span<float> raw_column_max = {});
+                 std::span<float> out, std::span<float> raw_column_max = {}, std::span<const float> gain = {});
 
 }  // namespace slopecast::core

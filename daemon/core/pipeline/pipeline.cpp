@@ -49,6 +49,14 @@ std::string validate(const PipelineSettings& s) {
                        pixels, s.camera.width_px, s.camera.height_px);
   for (float v : s.dark_adu)
     if (!std::isfinite(v)) return "dark frame contains a NaN or infinite pixel";
+  if (!s.flat.empty() && s.flat.size() != pixels)
+    return fmt::format("flat field has {} pixels, the camera has {} ({} x {})", s.flat.size(), pixels,
+                       s.camera.width_px, s.camera.height_px);
+  for (float v : s.flat)
+    if (!(v > 0.0f) || !std::isfinite(v)) return "flat field holds a pixel that is not a finite number > 0";
+  if (!s.bad_pixels.empty() && s.bad_pixels.size() != pixels)
+    return fmt::format("bad-pixel map has {} pixels, the camera has {} ({} x {})", s.bad_pixels.size(), pixels,
+                       s.camera.width_px, s.camera.height_px);
   if (!std::isfinite(s.min_flux_adu) || s.min_flux_adu < 0.0)
     return fmt::format("min_flux_adu must be a finite number >= 0, got {}", s.min_flux_adu);
   if (!std::isfinite(s.min_snr) || s.min_snr < 0.0)
@@ -89,7 +97,8 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
     : settings_(std::move(settings)),
       boxes_(settings_.layout.empty() ? regular_layout(settings_.grid) : settings_.layout),
       runs_(box_runs(boxes_)),
-      folded_(raw_columns_exact(settings_.camera.format, settings_.grid.pitch_px)),
+      folded_(raw_columns_exact(settings_.camera.format, settings_.grid.pitch_px) && settings_.flat.empty() &&
+              settings_.bad_pixels.empty()),
       needs_pixels_(settings_.centroider.kind != CentroiderKind::kCog || !folded_),
       simd_(simd.value_or(best_simd_level())),
       kernel_(folded_ ? raw_column_kernel(settings_.camera.format, simd_) : nullptr),
@@ -115,6 +124,36 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
     offset_x_[i] = b.x0 - b.ref_x - (rs ? settings_.reference_slope_x_px[i] : 0.0);
     offset_y_[i] = b.y0 - b.ref_y - (rs ? settings_.reference_slope_y_px[i] : 0.0);
   }
+  if (!settings_.flat.empty() || !settings_.bad_pixels.empty()) {
+    const std::size_t pixels = static_cast<std::size_t>(settings_.camera.width_px) * settings_.camera.height_px;
+    gain_.assign(pixels, 1.0f);
+    for (std::size_t k = 0; k < pixels; ++k) {
+      if (!settings_.flat.empty()) gain_[k] = 1.0f / settings_.flat[k];
+      if (!settings_.bad_pixels.empty() && settings_.bad_pixels[k]) gain_[k] = 0.0f;
+    }
+  }
+  // Each run's bad pixels, with the strip indices of their good neighbours.
+  run_fixes_.assign(runs_.size() + 1, 0);
+  for (std::size_t r = 0; r < runs_.size(); ++r) {
+    run_fixes_[r] = static_cast<int>(bad_fixes_.size());
+    if (settings_.bad_pixels.empty()) continue;
+    const int p = settings_.grid.pitch_px, x0 = boxes_[runs_[r].first].x0, y0 = boxes_[runs_[r].first].y0;
+    const int sw = runs_[r].count * p, W = settings_.camera.width_px;
+    const auto bad = [&](int x, int y) { return settings_.bad_pixels[static_cast<std::size_t>(y0 + y) * W + x0 + x] != 0; };
+    for (int y = 0; y < p; ++y)
+      for (int x = 0; x < sw; ++x) {
+        if (!bad(x, y)) continue;
+        BadFix f;
+        f.at = y * sw + x;
+        for (int dy = -1; dy <= 1; ++dy)
+          for (int dx = -1; dx <= 1; ++dx) {
+            const int nx = x + dx, ny = y + dy;
+            if ((dx || dy) && nx >= 0 && ny >= 0 && nx < sw && ny < p && !bad(nx, ny)) f.from[f.n++] = ny * sw + nx;
+          }
+        bad_fixes_.push_back(f);
+      }
+  }
+  run_fixes_[runs_.size()] = static_cast<int>(bad_fixes_.size());
   if (folded_) {
     const int p = settings_.grid.pitch_px;
     ring_pixels_ = border_pixel_count(p, p);
@@ -157,8 +196,16 @@ void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, 
     // Pixels: integer column sums (folded path), and the corrected strip
     // where the method reads pixels or the frame cannot be folded.
     if (folded_) kernel_(image, strip_box.x0, strip_box.y0, strip_width, p, cols);
-    if (needs_pixels_)
-      correct_box(image, s.dark_adu, strip_box, lane.strip, folded_ ? std::span<float>() : std::span<float>(lane.column_max));
+    if (needs_pixels_) {
+      correct_box(image, s.dark_adu, strip_box, lane.strip,
+                  folded_ ? std::span<float>() : std::span<float>(lane.column_max), gain_);
+      for (int k = run_fixes_[r]; k < run_fixes_[r + 1]; ++k) {
+        const BadFix& f = bad_fixes_[k];
+        float sum = 0.0f;
+        for (int j = 0; j < f.n; ++j) sum += lane.strip[f.from[j]];
+        lane.strip[f.at] = f.n ? sum / f.n : 0.0f;
+      }
+    }
     for (int ix = 0; ix < n_boxes; ++ix) {
       const int i = row0 + ix;
       const Box box{boxes_[i].x0, boxes_[i].y0, p, p};
@@ -334,7 +381,7 @@ std::variant<std::vector<float>, std::string> Pipeline::capture_reference(const 
   int used = 0;
   for (std::size_t i = 0; i < boxes_.size(); ++i) {
       if (measured.flags[i] != kFlagNone) continue;
-      correct_box(image, settings_.dark_adu, Box{boxes_[i].x0, boxes_[i].y0, p, p}, box);
+      correct_box(image, settings_.dark_adu, Box{boxes_[i].x0, boxes_[i].y0, p, p}, box, {}, gain_);
       const WindowView w{box.data(), p, p, p};
       const BorderStats b = border_stats(w, ring);
       const float level = settings_.background == BackgroundMode::kBorder && b.finite ? b.level_adu : 0.0f;

@@ -58,6 +58,18 @@ struct PipelineSettings {
   // Dark frame, ADU, row-major camera.width_px * camera.height_px values; empty
   // for none. Subtracted from every frame before centroiding.
   std::vector<float> dark_adu;
+  // Flat field, row-major camera-sized, mean 1 over the pupil
+  // (calibration/flat_field.h); empty for none. The pipeline measures
+  // (raw - dark) / flat. A flat (or a bad-pixel map) sends u8/u16 frames
+  // down the float path: the division is per pixel and cannot be folded
+  // into per-box constants.
+  std::vector<float> flat;
+  // Bad-pixel map, row-major camera-sized, non-zero = bad
+  // (calibration/bad_pixels.h); empty for none. A bad pixel is replaced by
+  // the mean of its good neighbours (of the 8, those inside the same row of
+  // boxes) before anything else reads the box, and never counts as the
+  // box's peak or as saturated.
+  std::vector<std::uint8_t> bad_pixels;
   // Per-box background estimate, subtracted after the dark (background.h).
   BackgroundMode background = BackgroundMode::kBorder;
   // A subaperture whose background-subtracted flux is below this is invalid, ADU.
@@ -128,7 +140,8 @@ class Pipeline {
   // The boxes in force (settings().layout, or the grid's regular layout).
   const std::vector<SubapertureBox>& boxes() const { return boxes_; }
   // Whether u8/u16 pixels go through the integer column sums (the folded
-  // path), and whether the method reads corrected pixels.
+  // path: no flat, no bad pixels), and whether the method reads corrected
+  // pixels.
   bool folded() const { return folded_; }
   bool needs_pixels() const { return needs_pixels_; }
   SimdLevel simd() const { return simd_; }
@@ -161,7 +174,17 @@ class Pipeline {
     std::vector<float> raw_box;              // one box's raw pixels, to count saturated ones
   };
 
+  // A bad pixel of a run's strip: its strip index and its good neighbours'.
+  struct BadFix {
+    int at = 0;
+    int n = 0;
+    int from[8] = {};
+  };
+
   PipelineSettings settings_;
+  std::vector<float> gain_;             // 1 / flat, 0 at bad pixels; empty when neither is set
+  std::vector<BadFix> bad_fixes_;       // by run
+  std::vector<int> run_fixes_;          // run r's fixes: [run_fixes_[r], run_fixes_[r+1])
   std::vector<SubapertureBox> boxes_;
   std::vector<BoxRun> runs_;
   std::vector<double> offset_x_, offset_y_;  // per box: x0 - ref_x - reference slope (slope = local centroid + offset)
