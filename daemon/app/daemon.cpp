@@ -52,6 +52,11 @@ Daemon::Daemon(io::DaemonConfig config)
     : config_(std::move(config)),
       pipeline_(config_.pipeline, config_.worker_threads),
       workers_(config_.worker_threads),
+      calibration_(config_.calibration_dir,
+                   !config_.calibration_set.empty() ? "set " + config_.calibration_set.string()
+                   : !config_.layout_file.empty()   ? "table from " + config_.layout_file.string()
+                                                    : std::string("regular grid"),
+                   config_.lattice, config_.calibration_made),
       measurement_(pipeline_.make_measurement()),
       stats_(config_.latency_window_frames, config_.max_seq_jump),
       started_(std::chrono::steady_clock::now()),
@@ -102,7 +107,7 @@ Daemon::Daemon(io::DaemonConfig config)
 Daemon::~Daemon() { zmq_socket_monitor(frames_.handle(), nullptr, 0); }
 
 int Daemon::run(int signal_fd) {
-  const auto& g = config_.pipeline.grid;
+  const auto& g = pipeline_.settings().grid;
   spdlog::info("slopecastd {} ready: frames from {}, measurements on {}, control on {}; {}x{} {} camera, "
                "{}x{} subapertures of {} px, {} centroider, dark {}; {} path, {} kernels, {} thread(s)",
                kVersion, config_.endpoints.frames_in, config_.endpoints.measurements_out,
@@ -279,8 +284,10 @@ void Daemon::handle_frame(zmq::message_t& header, zmq::message_t* payload, bool 
   stamp.frame_seq = header_scratch_.seq();
   stamp.camera_time_ns = header_scratch_.camera_time_ns();
   stamp.received_time_ns = received_ns;
-  stamp.n_subap_x = config_.pipeline.grid.n_subap_x;
-  stamp.n_subap_y = config_.pipeline.grid.n_subap_y;
+  stamp.n_subap_x = pipeline_.settings().grid.n_subap_x;
+  stamp.n_subap_y = pipeline_.settings().grid.n_subap_y;
+  stamp.slope_unit = config_.slope_unit;
+  stamp.units_per_px = config_.units_per_px;
   stamp.centroider = pipeline_.settings().centroider.kind;
   stamp.settings_generation = settings_generation_;
   stamp.check_us = micros(t_checked - t_received);
@@ -291,6 +298,75 @@ void Daemon::handle_frame(zmq::message_t& header, zmq::message_t* payload, bool 
   out_msg_.SerializeWithCachedSizesToArray(static_cast<std::uint8_t*>(out.data()));
   if (measurements_.send(out, zmq::send_flags::dontwait)) ++stats_.measurements_published;
   stats_.record_latency_us(micros(std::chrono::steady_clock::now() - t_received));
+  // After the measurement is out: a running acquisition takes the frame.
+  if (calibration_.running() &&
+      calibration_.feed(*checked.image, measurement_, header_scratch_.exposure_us(), settings_generation_)) {
+    if (auto next = calibration_.finish(pipeline_.settings())) apply_settings(std::move(*next), "calibration");
+    v1::CalibrationReply r;
+    calibration_.describe(pipeline_.settings(), r);
+    if (r.acquisition().state() == v1::ACQUISITION_STATE_DONE) spdlog::info("{}", r.acquisition().message());
+    else spdlog::warn("{} acquisition failed: {}", r.acquisition().kind_name(), r.acquisition().message());
+  }
+}
+
+void Daemon::apply_settings(core::PipelineSettings next, const std::string& why) {
+  pipeline_ = core::Pipeline(std::move(next), config_.worker_threads);
+  measurement_ = pipeline_.make_measurement();
+  // The last frame was measured under the old settings (perhaps another
+  // grid): it cannot serve a reference capture any more.
+  has_last_image_ = false;
+  io::encode_measurement(measurement_, io::MeasurementStamp{}, out_msg_);
+  ++settings_generation_;
+  const auto& g = pipeline_.settings().grid;
+  spdlog::info("{}: now {} x {} subapertures of {} px, {} path (settings generation {})", why, g.n_subap_x,
+               g.n_subap_y, g.pitch_px, pipeline_.folded() ? "folded" : "float", settings_generation_);
+}
+
+void Daemon::calibrate(const v1::CalibrationRequest& req, v1::ControlReply& reply) {
+  auto* out = reply.mutable_calibration();
+  switch (req.action_case()) {
+    case v1::CalibrationRequest::kStart:
+      if (auto e = calibration_.start(req.start(), pipeline_.settings(), settings_generation_); !e.empty())
+        return reply.set_error(e);
+      spdlog::info("{} acquisition started over {} frames", acquisition_kind_name(req.start().kind()),
+                   req.start().frames());
+      break;
+    case v1::CalibrationRequest::kCancel:
+      if (!calibration_.cancel()) return reply.set_error("no acquisition is running");
+      spdlog::info("acquisition cancelled");
+      break;
+    case v1::CalibrationRequest::kShow:
+      break;
+    case v1::CalibrationRequest::kSave: {
+      std::filesystem::path written;
+      if (auto e = calibration_.save(req.save(), pipeline_.settings(), written); !e.empty()) return reply.set_error(e);
+      out->set_set_path(written.string());
+      spdlog::info("calibration saved to {}", written.string());
+      break;
+    }
+    case v1::CalibrationRequest::kLoad: {
+      if (calibration_.running())
+        return reply.set_error("an acquisition is running; cancel it before loading a set");
+      std::filesystem::path read;
+      auto next = calibration_.load(req.load(), pipeline_.settings(), read);
+      if (auto* e = std::get_if<std::string>(&next))
+        return reply.set_error(*e + " (the calibration in force is unchanged)");
+      apply_settings(std::move(std::get<core::PipelineSettings>(next)), "calibration set " + read.string());
+      out->set_set_path(read.string());
+      break;
+    }
+    case v1::CalibrationRequest::ACTION_NOT_SET:
+      return reply.set_error("empty calibration request: set one action (start, cancel, show, save, load)");
+  }
+  describe_calibration(*out);
+  reply.set_ok(true);
+}
+
+void Daemon::describe_calibration(v1::CalibrationReply& out) const {
+  calibration_.describe(pipeline_.settings(), out);
+  out.set_settings_generation(settings_generation_);
+  out.set_slope_unit(std::string(core::slope_unit_name(config_.slope_unit)));
+  out.set_units_per_px(config_.units_per_px);
 }
 
 void Daemon::reject(core::FrameReject reason, const core::RejectedFrame& frame) {
@@ -389,7 +465,7 @@ void Daemon::fill_status(v1::StatusReply& s) {
   s.set_latency_max_us(lat.max_us);
   s.set_latency_window_frames(lat.frames);
   s.set_measurement_subscribers(static_cast<std::uint32_t>(std::max(0, subscribers_)));
-  const auto& p = config_.pipeline;
+  const auto& p = pipeline_.settings();
   s.set_width_px(p.camera.width_px);
   s.set_height_px(p.camera.height_px);
   s.set_n_subap_x(p.grid.n_subap_x);
@@ -401,6 +477,7 @@ void Daemon::fill_status(v1::StatusReply& s) {
   io::describe_centroider(pipeline_.settings().centroider, settings_generation_, *s.mutable_centroider());
   s.set_worker_threads(static_cast<std::uint32_t>(workers_.threads()));
   s.set_simd(core::simd_level_name(pipeline_.simd()));
+  describe_calibration(*s.mutable_calibration());
 }
 
 void Daemon::set_centroider(const v1::SetCentroiderRequest& req, v1::ControlReply& reply) {
@@ -421,7 +498,7 @@ void Daemon::set_centroider(const v1::SetCentroiderRequest& req, v1::ControlRepl
     if (auto* e = std::get_if<std::string>(&ref)) return reply.set_error("cannot capture a reference: " + *e);
     next.reference = core::ReferenceSource::kCaptured;
     next.reference_image = std::move(std::get<std::vector<float>>(ref));
-    next.reference_size = config_.pipeline.grid.pitch_px;
+    next.reference_size = pipeline_.settings().grid.pitch_px;
   } else if (next.reference == core::ReferenceSource::kCaptured && now.reference != core::ReferenceSource::kCaptured) {
     return reply.set_error("reference = \"captured\" needs an image captured from the live frames: send "
                            "capture_reference (slopecast centroider --capture-reference)");
@@ -469,8 +546,11 @@ void Daemon::handle_control() {
       case v1::ControlRequest::kSetCentroider:
         set_centroider(req.set_centroider(), reply);
         break;
+      case v1::ControlRequest::kCalibration:
+        calibrate(req.calibration(), reply);
+        break;
       case v1::ControlRequest::COMMAND_NOT_SET:
-        reply.set_error("empty request: set one command (status, set_centroider)");
+        reply.set_error("empty request: set one command (status, set_centroider, calibration)");
         break;
     }
   }

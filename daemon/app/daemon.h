@@ -36,6 +36,7 @@
 
 #include <zmq.hpp>
 
+#include "daemon/app/calibration_session.h"
 #include "daemon/app/daemon_stats.h"
 #include "daemon/app/row_workers.h"
 #include "daemon/core/pipeline/pipeline.h"
@@ -71,16 +72,24 @@ class Daemon {
   // Applies a set_centroider request: fills reply with the settings in force,
   // or an error and leaves them unchanged.
   void set_centroider(const v1::SetCentroiderRequest& req, v1::ControlReply& reply);
+  // Applies a calibration request (acquisitions, save, load, show).
+  void calibrate(const v1::CalibrationRequest& req, v1::ControlReply& reply);
+  // Builds the pipeline for `next` between two frames (settings generation
+  // + 1); the grid shape may change with it.
+  void apply_settings(core::PipelineSettings next, const std::string& why);
+  void describe_calibration(v1::CalibrationReply& out) const;
   void handle_subscriptions();
   void tick(double period_s);
   void fill_status(v1::StatusReply& s);
 
   io::DaemonConfig config_;
   // The settings in force live in pipeline_.settings(); config_.pipeline keeps
-  // what the daemon started with (camera and grid never change).
+  // what the daemon started with (the camera never changes; the grid shape
+  // may, with a registration or a loaded calibration set).
   core::Pipeline pipeline_;
   RowWorkers workers_;
   std::uint32_t settings_generation_ = 1;  // +1 per applied settings change
+  CalibrationSession calibration_;
   // The last measured frame, for capturing a reference: a view into
   // payload_msg_, valid while has_last_image_ (until the next frame is read).
   core::ImageView last_image_{};

@@ -8,76 +8,22 @@
 #include <fmt/format.h>
 #include <toml.hpp>
 
+#include "daemon/core/calibration/valid_map.h"
+#include "daemon/io/calibration_set.h"
 #include "daemon/io/fits_image.h"
+#include "daemon/io/toml_table_reader.h"
 
 namespace slopecast::io {
 
 namespace {
 
-// Reads typed values out of one TOML table, remembering which keys were used
-// so that unknown keys can be reported afterwards.
-class TableReader {
- public:
-  TableReader(const toml::value* table, std::string name) : table_(table), name_(std::move(name)) {}
-
-  std::string error;
-
-  void integer(const char* key, int& out, long min, long max) {
-    const toml::value* v = find(key);
-    if (!v || !error.empty()) return;
-    if (!v->is_integer()) return fail(key, "expected an integer");
-    const long n = static_cast<long>(v->as_integer());
-    if (n < min || n > max) return fail(key, fmt::format("must be {}..{}, got {}", min, max, n));
-    out = static_cast<int>(n);
-  }
-  void number(const char* key, double& out, double min) {
-    const toml::value* v = find(key);
-    if (!v || !error.empty()) return;
-    if (v->is_integer()) out = static_cast<double>(v->as_integer());
-    else if (v->is_floating()) out = v->as_floating();
-    else return fail(key, "expected a number");
-    if (!(out >= min)) return fail(key, fmt::format("must be >= {}, got {}", min, out));
-  }
-  void boolean(const char* key, bool& out) {
-    const toml::value* v = find(key);
-    if (!v || !error.empty()) return;
-    if (!v->is_boolean()) return fail(key, "expected true or false");
-    out = v->as_boolean();
-  }
-  void string(const char* key, std::string& out) {
-    const toml::value* v = find(key);
-    if (!v || !error.empty()) return;
-    if (!v->is_string()) return fail(key, "expected a string");
-    out = v->as_string().str;
-  }
-  // After all reads: any key not read is an error.
-  void reject_unknown() {
-    if (!table_ || !error.empty()) return;
-    for (const auto& [key, value] : table_->as_table())
-      if (!used_.count(key)) {
-        error = fmt::format("[{}] has an unknown key '{}'", name_, key);
-        return;
-      }
-  }
-
- private:
-  const toml::value* find(const char* key) {
-    used_.insert(key);
-    if (!table_) return nullptr;
-    const auto& t = table_->as_table();
-    auto it = t.find(key);
-    return it == t.end() ? nullptr : &it->second;
-  }
-  void fail(const char* key, const std::string& what) {
-    error = fmt::format("[{}] {}: {}", name_, key, what);
-  }
-  const toml::value* table_;
-  std::string name_;
-  std::set<std::string> used_;
-};
-
 const std::set<std::string> kTables = {"endpoints", "camera", "lenslet_grid", "calibration", "centroider",
-                                       "daemon"};
+                                       "optics", "daemon"};
+
+std::filesystem::path resolve(const std::filesystem::path& base_dir, const std::string& name) {
+  std::filesystem::path path(name);
+  return path.is_relative() ? base_dir / path : path;
+}
 
 // Every key of [centroider] goes through core::apply_option, the one place
 // those keys are known (shared with live control requests).
@@ -169,14 +115,27 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   grid.integer("pitch_px", p.grid.pitch_px, 2, 1024);
   grid.integer("origin_x_px", p.grid.origin_x_px, 0, 16384);
   grid.integer("origin_y_px", p.grid.origin_y_px, 0, 16384);
+  std::string layout_file;
+  grid.string("layout_file", layout_file);
   grid.reject_unknown();
   if (!grid.error.empty()) return fail(grid.error);
   if (p.grid.n_subap_x == 0 || p.grid.n_subap_y == 0 || p.grid.pitch_px == 0)
     return fail("[lenslet_grid] subapertures_x, subapertures_y and pitch_px are required");
 
   TableReader cal(table("calibration"), "calibration");
-  std::string dark, background = core::background_mode_name(p.background);
+  std::string dark, background = core::background_mode_name(p.background), set, cal_dir = "calibrations",
+                    valid_map_file;
   double saturation = 0.0;
+  core::PupilSpec pupil;
+  double pupil_fraction = 0.5;
+  cal.string("set", set);
+  cal.string("calibration_dir", cal_dir);
+  cal.string("valid_map_file", valid_map_file);
+  cal.number("pupil_centre_x_px", pupil.centre_x_px, -1e9);
+  cal.number("pupil_centre_y_px", pupil.centre_y_px, -1e9);
+  cal.number("pupil_diameter_px", pupil.diameter_px, 0.0);
+  cal.number("pupil_obstruction", pupil.obstruction, 0.0);
+  cal.number("pupil_min_area_fraction", pupil_fraction, 0.0);
   cal.string("dark_frame", dark);
   cal.string("background", background);
   cal.number("min_flux_adu", p.min_flux_adu, 0.0);
@@ -196,6 +155,25 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
 
   if (auto err = read_centroider(table("centroider"), p.centroider); !err.empty()) return fail(err);
 
+  TableReader op(table("optics"), "optics");
+  std::string unit = "px";
+  op.string("slope_unit", unit);
+  op.number("pixel_size_um", c.optics.pixel_size_um, 0.0);
+  op.number("lenslet_focal_length_mm", c.optics.lenslet_focal_length_mm, 0.0);
+  op.number("lenslet_pitch_um", c.optics.lenslet_pitch_um, 0.0);
+  op.number("plate_scale_arcsec_per_px", c.optics.plate_scale_arcsec_per_px, 0.0);
+  op.reject_unknown();
+  if (!op.error.empty()) return fail(op.error);
+  {
+    bool known = false;
+    for (auto u : {core::SlopeUnit::kPx, core::SlopeUnit::kRad, core::SlopeUnit::kNm, core::SlopeUnit::kArcsec})
+      if (unit == core::slope_unit_name(u)) c.slope_unit = u, known = true;
+    if (!known) return fail(fmt::format("[optics] slope_unit: '{}' is not one of \"px\", \"rad\", \"nm\", \"arcsec\"", unit));
+    auto k = core::units_per_px(c.slope_unit, c.optics);
+    if (auto* e = std::get_if<std::string>(&k)) return fail("[optics] " + *e);
+    c.units_per_px = std::get<double>(k);
+  }
+
   TableReader d(table("daemon"), "daemon");
   d.integer("frame_queue_depth", c.frame_queue_depth, 1, 10000);
   d.integer("measurement_queue_depth", c.measurement_queue_depth, 1, 100000);
@@ -211,7 +189,14 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   c.max_seq_jump = static_cast<std::uint64_t>(std::min(max_jump, 9.0e18));
 
   if (auto err = core::validate(p.camera); !err.empty()) return fail(err);
-  if (auto err = core::validate(p.grid, p.camera); !err.empty()) return fail(err);
+  if (!set.empty() && !layout_file.empty())
+    return fail("[calibration] set carries its own layout; [lenslet_grid] layout_file cannot be used with it");
+  if (!set.empty() && !dark.empty())
+    return fail("[calibration] set carries its own dark (or none); dark_frame cannot be used with it");
+  if (layout_file.empty() && set.empty()) {
+    if (auto err = core::validate(p.grid, p.camera); !err.empty()) return fail(err);
+  }
+  c.calibration_dir = resolve(base_dir, cal_dir);
   const std::int64_t frame_bytes = static_cast<std::int64_t>(p.camera.width_px) * p.camera.height_px *
                                    static_cast<std::int64_t>(core::bytes_per_pixel(p.camera.format));
   const std::int64_t default_cap = std::max<std::int64_t>(4 * frame_bytes + (1 << 20), std::int64_t{64} << 20);
@@ -226,7 +211,7 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
     if (path.is_relative()) path = base_dir / path;
     c.dark_frame = path;
   }
-  if (dark.empty())
+  if (dark.empty() && set.empty())
     c.warnings.push_back(
         p.background == core::BackgroundMode::kNone
             ? "[calibration] no dark_frame and background = \"none\": the camera bias stays in every box, "
@@ -243,6 +228,52 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
                               path.string(), img.width, img.height, p.camera.width_px,
                               p.camera.height_px));
     p.dark_adu = std::move(img.pixels);
+  }
+  if (!layout_file.empty()) {
+    c.layout_file = resolve(base_dir, layout_file);
+    auto boxes = read_layout_file(c.layout_file);
+    if (auto* e = std::get_if<std::string>(&boxes)) return fail("[lenslet_grid] layout_file: " + *e);
+    p.layout = std::move(std::get<std::vector<core::SubapertureBox>>(boxes));
+    if (auto err = core::validate_layout(p.layout, p.grid, p.camera); !err.empty())
+      return fail("[lenslet_grid] layout_file " + c.layout_file.string() + ": " + err);
+  }
+  if (!set.empty()) {
+    // The set is the sensor's geometry, so clients that skip images read
+    // it too; for them a missing or broken set is a warning, not an error.
+    c.calibration_set = resolve(base_dir, set);
+    auto loaded = load_calibration_set(c.calibration_set, p.camera);
+    std::string err = std::holds_alternative<std::string>(loaded) ? std::get<std::string>(loaded) : std::string();
+    if (err.empty()) {
+      const auto& cs = std::get<CalibrationSet>(loaded);
+      err = apply_calibration(cs, p);
+      c.lattice = cs.lattice;
+      c.calibration_made = cs.made;
+    }
+    if (!err.empty() && what.load_images) return fail("[calibration] set: " + err);
+    if (!err.empty()) c.warnings.push_back("[calibration] set: " + err);
+  }
+  // Valid maps from a file or a pupil, combined with the set's.
+  if (!valid_map_file.empty() && what.load_images) {
+    const auto path = resolve(base_dir, valid_map_file);
+    auto image = read_fits_image(path);
+    if (auto* e = std::get_if<FitsError>(&image)) return fail("[calibration] valid_map_file: " + e->message);
+    const auto& img = std::get<FitsImage>(image);
+    if (img.width != p.grid.n_subap_x || img.height != p.grid.n_subap_y)
+      return fail(fmt::format("[calibration] valid_map_file {} is {} x {}, the grid {} x {} subapertures",
+                              path.string(), img.width, img.height, p.grid.n_subap_x, p.grid.n_subap_y));
+    std::vector<std::uint8_t> map;
+    for (float v : img.pixels) map.push_back(v != 0.0f);
+    p.valid_map = core::combine_maps(p.valid_map, map);
+  }
+  if (pupil.diameter_px > 0.0) {
+    if (auto err = core::validate(pupil); !err.empty()) return fail("[calibration] " + err);
+    if (!(pupil_fraction > 0.0 && pupil_fraction <= 1.0))
+      return fail(fmt::format("[calibration] pupil_min_area_fraction must be 0 < f <= 1, got {}", pupil_fraction));
+    const auto boxes = p.layout.empty() ? core::regular_layout(p.grid) : p.layout;
+    p.valid_map = core::combine_maps(p.valid_map, core::valid_from_pupil(boxes, pupil, pupil_fraction));
+  } else if (pupil.obstruction > 0.0 || pupil.centre_x_px != 0.0 || pupil.centre_y_px != 0.0) {
+    return fail("[calibration] a pupil needs pupil_diameter_px (with pupil_centre_x_px, pupil_centre_y_px and "
+                "optionally pupil_obstruction)");
   }
   c.base_dir = base_dir;
   if (p.centroider.reference == core::ReferenceSource::kCaptured)

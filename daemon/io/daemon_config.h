@@ -8,12 +8,15 @@
 #pragma once
 
 #include <filesystem>
+#include <map>
 #include <optional>
 #include <string>
 #include <variant>
 #include <vector>
 
+#include "daemon/core/calibration/slope_units.h"
 #include "daemon/core/pipeline/pipeline.h"
+#include "daemon/io/calibration_set.h"
 #include "daemon/io/endpoint.h"
 
 namespace slopecast::io {
@@ -62,6 +65,22 @@ struct DaemonConfig {
   bool newest_frame_only = false;
   // Dark frame path as resolved (empty: none). The pixels are in pipeline.dark_adu.
   std::filesystem::path dark_frame;
+  // Calibration set loaded at start ([calibration] set; empty: none), and
+  // the folder live save/load requests name their sets in
+  // ([calibration] calibration_dir, default "calibrations" beside the
+  // config file).
+  std::filesystem::path calibration_set;
+  std::filesystem::path calibration_dir;
+  // Layout table given by hand ([lenslet_grid] layout_file; empty: none).
+  std::filesystem::path layout_file;
+  // From the calibration set: the registration's lattice (when it made the
+  // layout) and each product's provenance, kept for the next save.
+  std::optional<core::LatticeFit> lattice;
+  std::map<std::string, Provenance> calibration_made;
+  // Published slope unit and the optics that convert to it ([optics]).
+  core::SlopeUnit slope_unit = core::SlopeUnit::kPx;
+  core::SlopeOptics optics;
+  double units_per_px = 1.0;
   // The config file's folder: relative paths, in the file and in live
   // control requests (reference_file), are taken from here.
   std::filesystem::path base_dir;
@@ -87,7 +106,8 @@ struct ConfigLoad {
 // success (or when there is nothing to load), otherwise why not.
 std::string load_reference_image(core::CentroiderSettings& s, const std::filesystem::path& base_dir);
 
-// Parses, checks and (if configured and asked) loads the dark frame.
+// Parses, checks and (if configured and asked) loads the dark frame, the
+// calibration set, the layout file and the valid-map file.
 std::variant<DaemonConfig, ConfigError> load_daemon_config(const std::filesystem::path& file,
                                                            ConfigLoad what = {});
 

@@ -1,12 +1,20 @@
-// Reading and writing single 2-D images as FITS (FITS Standard 4.0), through
-// cfitsio.
+// FITS files (FITS Standard 4.0) through cfitsio: 2-D images and 3-D cubes
+// in the primary HDU, and binary tables in an extension.
 //
 // Axis convention: NAXIS1 is x (columns, varies fastest), NAXIS2 is y (rows),
-// so pixels[y * width + x] is FITS pixel (x+1, y+1). Any BITPIX is read and
-// converted to float, with BSCALE/BZERO applied by cfitsio. Images are written
-// as BITPIX = -32 (IEEE float), the natural type for calibration frames.
+// NAXIS3 the plane (a frame of a cube), so pixels[(z * height + y) * width +
+// x] is FITS pixel (x+1, y+1, z+1). Any BITPIX is read and converted to
+// float, with BSCALE/BZERO applied by cfitsio. Writers choose the on-disk
+// type: BITPIX -32 (IEEE float) for calibration frames, 8 for maps, and 16
+// with BZERO = 32768 for unsigned 16-bit camera frames (Standard 4.0, sec.
+// 5.3: the unsigned-integer convention).
+//
+// Every write goes to "<path>.partial" and is renamed over the target when
+// complete, so a reader never sees a half-written file and a failed write
+// (or a kill) leaves the old file in place.
 #pragma once
 
+#include <cstdint>
 #include <filesystem>
 #include <span>
 #include <string>
@@ -22,8 +30,28 @@ struct FitsImage {
   std::vector<float> pixels;  // row-major, width * height
 };
 
+struct FitsCube {
+  int width = 0, height = 0, planes = 1;  // NAXIS1..3 (planes 1 for a 2-D image)
+  std::vector<float> pixels;              // plane after plane
+};
+
 struct FitsError {
   std::string message;  // names the file and cfitsio's reason
+};
+
+// A header card written after the mandatory ones.
+struct FitsCard {
+  std::string keyword;  // <= 8 characters, upper case
+  std::variant<double, long long, std::string> value;
+  std::string comment;
+};
+
+enum class FitsPixel { kF32, kU16, kU8 };
+
+// What goes in the header besides the data's own cards.
+struct FitsHeader {
+  std::vector<FitsCard> cards;
+  std::vector<std::string> history;  // one HISTORY card (or more, wrapped) per entry
 };
 
 // The primary HDU must hold a 2-D image (a 3-D image with NAXIS3 = 1 is
@@ -31,17 +59,44 @@ struct FitsError {
 // holes must be repaired, not silently used.
 std::variant<FitsImage, FitsError> read_fits_image(const std::filesystem::path& path);
 
-// Extra header cards written after the mandatory ones: (keyword, comment).
-struct FitsCard {
-  std::string keyword;  // <= 8 characters, upper case
-  double value = 0.0;
-  std::string comment;
-};
+// A 2-D image (planes = 1) or a 3-D cube from the primary HDU; NaN or
+// infinite pixels refused likewise.
+std::variant<FitsCube, FitsError> read_fits_cube(const std::filesystem::path& path);
 
 // Writes (replacing any existing file) a BITPIX = -32 primary image.
 // Returns an empty string on success, otherwise the reason.
 std::string write_fits_image(const std::filesystem::path& path, int width, int height,
                              std::span<const float> pixels, std::span<const FitsCard> cards = {},
                              const std::string& history = {});
+
+// Writes a primary image of `planes` planes (NAXIS = 2 when planes is 1)
+// stored as `pixel`; values must fit the type (0..255 or 0..65535 whole
+// numbers for the integer types: checked, refused otherwise).
+std::string write_fits_cube(const std::filesystem::path& path, int width, int height, int planes,
+                            std::span<const float> pixels, FitsPixel pixel, const FitsHeader& header = {});
+
+// A binary-table column: integers are written as TFORM 'K' (64-bit), reals
+// as 'D' (double).
+struct FitsColumn {
+  std::string name;
+  bool integer = false;
+  std::string unit;  // TUNITn, may be empty
+  std::vector<double> values;
+};
+
+struct FitsTable {
+  long rows = 0;
+  std::vector<FitsColumn> columns;
+  const FitsColumn* find(const std::string& name) const;
+};
+
+// Writes an empty primary HDU (carrying `header`) and one binary-table
+// extension named extname holding the columns (all the same length).
+std::string write_fits_table(const std::filesystem::path& path, const std::string& extname,
+                             std::span<const FitsColumn> columns, const FitsHeader& header = {});
+
+// Reads every column of the binary-table extension named extname; numeric
+// columns only, non-finite values refused.
+std::variant<FitsTable, FitsError> read_fits_table(const std::filesystem::path& path, const std::string& extname);
 
 }  // namespace slopecast::io

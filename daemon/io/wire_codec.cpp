@@ -27,6 +27,16 @@ v1::Centroider to_wire(core::CentroiderKind k) {
   return v1::CENTROIDER_UNSPECIFIED;
 }
 
+v1::SlopeUnit to_wire(core::SlopeUnit u) {
+  switch (u) {
+    case core::SlopeUnit::kPx: return v1::SLOPE_UNIT_PX;
+    case core::SlopeUnit::kRad: return v1::SLOPE_UNIT_RAD;
+    case core::SlopeUnit::kNm: return v1::SLOPE_UNIT_NM;
+    case core::SlopeUnit::kArcsec: return v1::SLOPE_UNIT_ARCSEC;
+  }
+  return v1::SLOPE_UNIT_UNSPECIFIED;
+}
+
 std::optional<core::PixelFormat> from_wire(int code) {
   switch (code) {
     case v1::PIXEL_TYPE_U8: return core::PixelFormat::kU8;
@@ -67,11 +77,17 @@ void encode_measurement(const core::FrameMeasurement& m, const MeasurementStamp&
   msg.set_received_time_ns(s.received_time_ns);
   msg.set_published_time_ns(s.published_time_ns);
   msg.set_centroider(to_wire(s.centroider));
-  msg.set_slope_unit(v1::SLOPE_UNIT_PX);
+  msg.set_slope_unit(to_wire(s.slope_unit));
+  msg.set_units_per_px(s.units_per_px);
   msg.set_n_subap_x(static_cast<std::uint32_t>(s.n_subap_x));
   msg.set_n_subap_y(static_cast<std::uint32_t>(s.n_subap_y));
   copy_into(msg.mutable_slope_x(), m.slope_x_px);
   copy_into(msg.mutable_slope_y(), m.slope_y_px);
+  if (s.units_per_px != 1.0) {
+    const auto k = static_cast<float>(s.units_per_px);
+    for (auto* f : {msg.mutable_slope_x(), msg.mutable_slope_y()})
+      for (float& v : *f) v *= k;
+  }
   copy_into(msg.mutable_flux_adu(), m.flux_adu);
   copy_into(msg.mutable_peak_adu(), m.peak_adu);
   copy_into(msg.mutable_flags(), m.flags);
@@ -91,8 +107,8 @@ void encode_measurement(const core::FrameMeasurement& m, const MeasurementStamp&
   valid->Resize(m.size(), false);
   for (int i = 0; i < m.size(); ++i) valid->Set(i, m.flags[i] == core::kFlagNone);
   msg.set_n_valid(static_cast<std::uint32_t>(m.n_valid));
-  msg.set_slope_rms_x(m.slope_rms_x_px);
-  msg.set_slope_rms_y(m.slope_rms_y_px);
+  msg.set_slope_rms_x(static_cast<float>(m.slope_rms_x_px * s.units_per_px));
+  msg.set_slope_rms_y(static_cast<float>(m.slope_rms_y_px * s.units_per_px));
   msg.set_mean_flux_adu(m.mean_flux_adu);
   auto* t = msg.mutable_stage_times();
   t->set_check_us(s.check_us);

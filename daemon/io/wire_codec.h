@@ -12,6 +12,7 @@
 
 #include "daemon/core/centroid/centroider_settings.h"
 #include "daemon/core/frame/frame_check.h"
+#include "daemon/core/calibration/slope_units.h"
 #include "daemon/core/pipeline/frame_measurement.h"
 #include "slopecast/v1/control.pb.h"
 #include "slopecast/v1/frame.pb.h"
@@ -28,6 +29,7 @@ std::optional<core::FrameFacts> decode_frame_header(std::span<const std::byte> b
 
 v1::PixelType to_wire(core::PixelFormat f);
 v1::Centroider to_wire(core::CentroiderKind k);
+v1::SlopeUnit to_wire(core::SlopeUnit u);
 std::optional<core::PixelFormat> from_wire(int pixel_type_code);
 
 // Facts about the frame that the measurement carries besides the arrays.
@@ -40,6 +42,9 @@ struct MeasurementStamp {
   int n_subap_y = 0;
   core::CentroiderKind centroider = core::CentroiderKind::kCog;
   std::uint32_t settings_generation = 1;
+  // Published slopes are the pipeline's px times units_per_px, in slope_unit.
+  core::SlopeUnit slope_unit = core::SlopeUnit::kPx;
+  double units_per_px = 1.0;
   float check_us = 0.0f;
   float centroid_us = 0.0f;
 };
