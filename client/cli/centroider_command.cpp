@@ -60,20 +60,9 @@ void run_centroider(CentroiderOptions o) {
   set->set_capture_reference(o.capture_reference);
   zmq::context_t ctx(1);
   client::ControlClient control(ctx, *control_endpoint);
-  auto result = control.call(request, std::chrono::milliseconds(static_cast<long>(o.timeout_s * 1000)));
-  if (auto* err = std::get_if<std::string>(&result)) {
-    if (stop_requested()) return;
-    std::cerr << "slopecast centroider: " << *err << "\n";
-    exit_code() = 1;
-    return;
-  }
-  const auto& reply = std::get<v1::ControlReply>(result);
-  if (!reply.ok()) {
-    std::cerr << "slopecast centroider: refused: " << reply.error() << " (the running settings are unchanged)\n";
-    exit_code() = 1;
-    return;
-  }
-  const v1::CentroiderReply& c = reply.centroider();
+  const auto reply = call_daemon(kCmd, control, request, o.timeout_s, " (the running settings are unchanged)");
+  if (!reply) return;
+  const v1::CentroiderReply& c = reply->centroider();
   if (o.json) return print_json(kCmd, c);
   std::cout << fmt::format("{} {}\n  settings generation {}{}\n", c.changed() ? "now" : "in force:", c.summary(),
                            c.settings_generation(), c.changed() ? " (measurements from the next frame on)" : "");

@@ -55,4 +55,23 @@ std::optional<std::string> resolve_control(const char* command, const std::strin
   return endpoint;
 }
 
+std::optional<v1::ControlReply> call_daemon(const char* command, client::ControlClient& control,
+                                            const v1::ControlRequest& request, double timeout_s,
+                                            const char* refused_suffix) {
+  auto result = control.call(request, std::chrono::milliseconds(static_cast<long>(timeout_s * 1000)));
+  if (auto* err = std::get_if<std::string>(&result)) {
+    if (stop_requested()) return std::nullopt;
+    std::cerr << "slopecast " << command << ": " << *err << "\n";
+    exit_code() = 1;
+    return std::nullopt;
+  }
+  auto& reply = std::get<v1::ControlReply>(result);
+  if (!reply.ok()) {
+    std::cerr << "slopecast " << command << ": refused: " << reply.error() << refused_suffix << "\n";
+    exit_code() = 1;
+    return std::nullopt;
+  }
+  return std::move(reply);
+}
+
 }  // namespace slopecast::cli

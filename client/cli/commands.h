@@ -9,6 +9,7 @@
 #include <CLI/CLI.hpp>
 #include <google/protobuf/message.h>
 
+#include "client/lib/control_client.h"
 #include "daemon/io/daemon_config.h"
 
 namespace slopecast::cli {
@@ -21,6 +22,12 @@ void add_watch_command(CLI::App& app);
 void add_status_command(CLI::App& app);
 void add_centroider_command(CLI::App& app);
 void add_roundtrip_command(CLI::App& app);
+void add_calibrate_command(CLI::App& app);
+void add_register_command(CLI::App& app);
+
+// The command line as typed (argv joined by spaces), for provenance.
+const std::string& invocation();
+void set_invocation(int argc, char** argv);
 
 // True once SIGINT or SIGTERM has arrived (installed by main).
 bool stop_requested();
@@ -43,6 +50,13 @@ std::optional<std::string> resolve_control(const char* command, const std::strin
 // Prints a reply as JSON (protobuf's JSON mapping, field names as in the
 // .proto, every field shown) for scripts; on failure fails the command.
 void print_json(const char* command, const google::protobuf::Message& message);
+
+// One control request. On a transport error or a refusal prints why
+// ("slopecast <command>: refused: <error><refused_suffix>"), sets exit code
+// 1 and returns nullopt (quietly when a signal interrupted the wait).
+std::optional<v1::ControlReply> call_daemon(const char* command, client::ControlClient& control,
+                                            const v1::ControlRequest& request, double timeout_s,
+                                            const char* refused_suffix = "");
 
 // A slopecastd config read for its camera, grid and endpoints (its dark is
 // not loaded: it may not exist yet). On error fails the command.

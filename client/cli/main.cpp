@@ -6,6 +6,7 @@
 // for Ctrl-C, 143 for SIGTERM), so scripts can tell a stop from success.
 #include <csignal>
 #include <atomic>
+#include <string>
 
 #include "client/cli/commands.h"
 
@@ -19,6 +20,18 @@ int& exit_code() {
   static int code = 0;
   return code;
 }
+namespace {
+std::string& invocation_text() {
+  static std::string text;
+  return text;
+}
+}  // namespace
+const std::string& invocation() { return invocation_text(); }
+void set_invocation(int argc, char** argv) {
+  std::string& t = invocation_text();
+  t = "slopecast";
+  for (int i = 1; i < argc; ++i) t += std::string(" ") + argv[i];
+}
 bool stop_requested() { return g_stop_signal.load() != 0; }
 int stopped_exit_code() { return 128 + g_stop_signal.load(); }
 }  // namespace slopecast::cli
@@ -31,13 +44,16 @@ int main(int argc, char** argv) {
   sa.sa_flags = 0;  // no SA_RESTART: blocking calls return EINTR at once
   sigaction(SIGINT, &sa, nullptr);
   sigaction(SIGTERM, &sa, nullptr);
-  CLI::App app{"slopecast: simulate a lenslet camera, watch and query slopecastd."};
+  set_invocation(argc, argv);
+  CLI::App app{"slopecast: simulate a lenslet camera, watch, query and calibrate slopecastd."};
   app.require_subcommand(1);
   add_sim_command(app);
   add_watch_command(app);
   add_status_command(app);
   add_centroider_command(app);
   add_roundtrip_command(app);
+  add_calibrate_command(app);
+  add_register_command(app);
   CLI11_PARSE(app, argc, argv);
   if (stop_requested() && exit_code() == 0) exit_code() = stopped_exit_code();
   return exit_code();

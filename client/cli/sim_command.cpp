@@ -2,9 +2,13 @@
 // pixel-integrated Gaussian spots at known sub-pixel offsets (new offsets
 // every frame) on diffuse background light, with photon and read noise on a
 // bias, at a fixed rate, in any pixel type and camera size; can write the
-// true offsets to a CSV file and a mean dark frame to FITS. `--config` takes
+// true offsets to a CSV file and a mean dark frame to FITS. Other scenes
+// stand in for a calibration session: a static lattice to register, no
+// light for a dark, even light for a flat. `--config` takes
 // the camera, the grid and the frames endpoint from a slopecastd config.
 #include <fstream>
+#include <optional>
+#include <sstream>
 #include <iostream>
 #include <memory>
 #include <thread>
@@ -16,6 +20,7 @@
 #include "client/lib/frame_publisher.h"
 #include "client/lib/measurement_tally.h"
 #include "client/sim/frame_bank.h"
+#include "client/sim/lattice_field.h"
 #include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/fits_image.h"
 #include "daemon/io/wire_codec.h"
@@ -51,7 +56,24 @@ struct SimOptions {
   double wait_subscriber_s = 10.0;
   bool block_when_full = false;
   std::string source_id = "slopecast-sim";
+  // What the camera sees: "spots" (a regular grid of spots at random
+  // offsets, with truth), "lattice" (a static, turned, non-integer-pitch
+  // lattice behind an obstructed pupil: what registration works on),
+  // "dark" (no light) or "uniform" (even light, for a flat).
+  std::string scene = "spots";
+  sim::LatticeFieldSettings lattice;
+  std::vector<std::string> dead;
+  double uniform_e = 10000.0;
 };
+
+// "i,j" -> (i, j).
+std::optional<std::pair<int, int>> parse_lenslet(const std::string& text) {
+  int i = 0, j = 0;
+  char comma = 0;
+  std::istringstream in(text);
+  if (!(in >> i >> comma >> j) || comma != ',' || !in.eof()) return std::nullopt;
+  return std::pair{i, j};
+}
 
 void run_sim(SimOptions o) {
   if (!o.config.empty()) {
@@ -89,8 +111,26 @@ void run_sim(SimOptions o) {
                                   o.pixel_type, type_full_scale));
   if (auto e = core::validate(camera); !e.empty()) return fail(kCmd, e);
   if (auto e = core::validate(field.grid, camera); !e.empty()) return fail(kCmd, e);
-  if (auto e = sim::validate(field); !e.empty()) return fail(kCmd, e);
+  if (o.scene == "spots")
+    if (auto e = sim::validate(field); !e.empty()) return fail(kCmd, e);
   if (auto e = sim::validate(detector); !e.empty()) return fail(kCmd, e);
+  if (o.scene != "spots" && o.scene != "lattice" && o.scene != "dark" && o.scene != "uniform")
+    return fail(kCmd, fmt::format("--scene '{}' is not one of spots, lattice, dark, uniform", o.scene));
+  if (o.scene != "spots" && !o.truth_csv.empty())
+    return fail(kCmd, "--truth-csv belongs to --scene spots (the other scenes are static; their truth is the "
+                      "lattice settings themselves)");
+  o.lattice.width_px = camera.width_px;
+  o.lattice.height_px = camera.height_px;
+  o.lattice.spot_sigma_px = o.spot_sigma_px;
+  o.lattice.photons_per_spot = o.photons;
+  o.lattice.background_e = o.background_e;
+  for (const auto& d : o.dead) {
+    const auto ij = parse_lenslet(d);
+    if (!ij) return fail(kCmd, fmt::format("--dead '{}': expected i,j (a lenslet's column and row)", d));
+    o.lattice.dead.push_back(*ij);
+  }
+  if (o.scene == "lattice")
+    if (auto e = sim::validate(o.lattice); !e.empty()) return fail(kCmd, "lattice: " + e);
   const auto keep_going = [] { return !stop_requested(); };
 
   if (!o.write_dark.empty()) {
@@ -127,13 +167,30 @@ void run_sim(SimOptions o) {
   }
   const int distinct =
       static_cast<int>(o.frames > 0 ? std::min<std::uint64_t>(o.frames, o.distinct_frames) : o.distinct_frames);
-  std::cout << fmt::format("rendering {} distinct {} x {} {} frames ({} x {} spots, sigma {} px, {} photons, "
-                           "background {} e-/px)...\n",
-                           distinct, camera.width_px, camera.height_px, o.pixel_type, o.subapertures_x,
-                           o.subapertures_y, o.spot_sigma_px, o.photons, o.background_e)
+  std::string scene;
+  if (o.scene == "spots")
+    scene = fmt::format("{} x {} spots, sigma {} px, {} photons, background {} e-/px", o.subapertures_x,
+                        o.subapertures_y, o.spot_sigma_px, o.photons, o.background_e);
+  else if (o.scene == "lattice")
+    scene = fmt::format("lattice of {} x {} lenslets, pitch {} px, rotation {} deg, pupil {} px ({} obstructed), "
+                        "tilt ({}, {}) px",
+                        o.lattice.lenslets_x, o.lattice.lenslets_y, o.lattice.pitch_px, o.lattice.rotation_deg,
+                        o.lattice.pupil_diameter_px, o.lattice.obstruction, o.lattice.tilt_x_px, o.lattice.tilt_y_px);
+  else
+    scene = o.scene == "dark" ? "no light" : fmt::format("uniform light, {} e-/px", o.uniform_e);
+  std::cout << fmt::format("rendering {} distinct {} x {} {} frames ({})...\n", distinct, camera.width_px,
+                           camera.height_px, o.pixel_type, scene)
             << std::flush;
-  const sim::FrameBank bank =
-      sim::make_frame_bank(field, detector, camera, o.background_e, distinct, o.seed, keep_going);
+  sim::FrameBank bank;
+  const std::size_t pixels = static_cast<std::size_t>(camera.width_px) * camera.height_px;
+  if (o.scene == "spots")
+    bank = sim::make_frame_bank(field, detector, camera, o.background_e, distinct, o.seed, keep_going);
+  else if (o.scene == "lattice")
+    bank = sim::make_static_bank(sim::render_lattice_field(o.lattice).image_e, detector, camera, distinct, o.seed,
+                                 keep_going);
+  else
+    bank = sim::make_static_bank(std::vector<double>(pixels, o.scene == "dark" ? 0.0 : o.uniform_e), detector,
+                                 camera, distinct, o.seed, keep_going);
   if (stop_requested()) {
     std::cout << "stopped while rendering; sent 0 frames\n";
     return;
@@ -177,7 +234,7 @@ void run_sim(SimOptions o) {
       continue;
     }
     ++sent;
-    if (truth.is_open()) {  // only frames that left: what a test can expect to see measured
+    if (truth.is_open() && !bank.truth.empty()) {  // only frames that left: what a test can expect to see measured
       const auto& t = bank.truth[k];
       for (std::size_t i = 0; i < t.dx_px.size(); ++i)
         truth << fmt::format("{},{},{:.6f},{:.6f}\n", seq, i, t.dx_px[i], t.dy_px[i]);
@@ -242,6 +299,28 @@ void add_sim_command(CLI::App& app) {
                 "When a subscriber's queue is full, wait for room instead of dropping the frame (lossless: "
                 "the rate then follows the slowest subscriber)");
   cmd->add_option("--source-id", o->source_id, "Text put in every frame header's source_id")->capture_default_str();
+  cmd->add_option("--scene", o->scene,
+                  "What the camera sees: spots (a regular grid, random offsets, with truth), lattice (a static "
+                  "turned lattice behind an obstructed pupil, for registration), dark (no light), uniform (even "
+                  "light, for a flat)")
+      ->capture_default_str();
+  auto& L = o->lattice;
+  cmd->add_option("--lattice-pitch-px", L.pitch_px, "lattice: lenslet pitch on the camera, px (any real)")->capture_default_str();
+  cmd->add_option("--lattice-rotation-deg", L.rotation_deg, "lattice: rotation, degrees (+x toward +y)")->capture_default_str();
+  cmd->add_option("--lattice-origin-x-px", L.origin_x_px, "lattice: spot of lenslet (0, 0), x px")->capture_default_str();
+  cmd->add_option("--lattice-origin-y-px", L.origin_y_px, "lattice: spot of lenslet (0, 0), y px")->capture_default_str();
+  cmd->add_option("--lattice-lenslets-x", L.lenslets_x, "lattice: lenslets across")->capture_default_str();
+  cmd->add_option("--lattice-lenslets-y", L.lenslets_y, "lattice: lenslets down")->capture_default_str();
+  cmd->add_option("--pupil-centre-x-px", L.pupil_x_px, "lattice: pupil centre, x px")->capture_default_str();
+  cmd->add_option("--pupil-centre-y-px", L.pupil_y_px, "lattice: pupil centre, y px")->capture_default_str();
+  cmd->add_option("--pupil-diameter-px", L.pupil_diameter_px, "lattice: pupil diameter, px")->capture_default_str();
+  cmd->add_option("--pupil-obstruction", L.obstruction, "lattice: central obstruction, fraction of the diameter")
+      ->capture_default_str();
+  cmd->add_option("--tilt-x-px", L.tilt_x_px, "lattice: every spot moved by this, x px (a wavefront tilt)")->capture_default_str();
+  cmd->add_option("--tilt-y-px", L.tilt_y_px, "lattice: every spot moved by this, y px")->capture_default_str();
+  cmd->add_option("--dead", o->dead, "lattice: lenslet i,j gives no light (repeat for several)");
+  cmd->add_option("--uniform-e-per-px", o->uniform_e, "uniform: light per pixel, expected photo-electrons")
+      ->capture_default_str()->check(CLI::NonNegativeNumber);
   cmd->callback([o] { run_sim(*o); });
 }
 

@@ -25,6 +25,21 @@ FrameBank make_frame_bank(const SpotFieldSettings& field, const DetectorModel& d
   return bank;
 }
 
+FrameBank make_static_bank(const std::vector<double>& expected_e, const DetectorModel& detector,
+                           const core::CameraSpec& camera, int count, std::uint64_t seed, const KeepGoing& keep_going) {
+  std::mt19937_64 rng(seed);
+  FrameBank bank;
+  bank.camera = camera;
+  bank.frames.reserve(count);
+  const bool integer = camera.format != core::PixelFormat::kF32;
+  std::vector<double> adu(expected_e.size());
+  for (int k = 0; k < count && keep_going(); ++k) {
+    expose_adu(expected_e, detector, rng, adu, integer);
+    bank.frames.push_back(encode_pixels(adu, camera.format));
+  }
+  return bank;
+}
+
 std::vector<float> make_mean_dark(const DetectorModel& detector, int width, int height, int n,
                                   std::uint64_t seed, const KeepGoing& keep_going) {
   std::mt19937_64 rng(seed);

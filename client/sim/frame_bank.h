@@ -36,6 +36,14 @@ FrameBank make_frame_bank(const SpotFieldSettings& field, const DetectorModel& d
                           const core::CameraSpec& camera, double background_e_per_px, int count,
                           std::uint64_t seed, const KeepGoing& keep_going = [] { return true; });
 
+// `count` exposures of one fixed scene (expected photo-electrons per pixel,
+// row-major, camera-sized): a static lattice of spots, uniform light for a
+// flat, or nothing for a dark. truth stays empty. Precondition:
+// validate(detector) is empty.
+FrameBank make_static_bank(const std::vector<double>& expected_e, const DetectorModel& detector,
+                           const core::CameraSpec& camera, int count, std::uint64_t seed,
+                           const KeepGoing& keep_going = [] { return true; });
+
 // The mean of n dark exposures (no light at all): what a bench's dark
 // acquisition would produce, in ADU, row-major. Empty if stopped early.
 std::vector<float> make_mean_dark(const DetectorModel& detector, int width, int height, int n,
