@@ -129,21 +129,36 @@ int main(int argc, char** argv) {
     const auto& c = std::get<io::DaemonConfig>(loaded);
     const auto& p = c.pipeline;
     const double saturation = p.saturation_adu.value_or(core::full_scale_adu(p.camera.format));
+    const std::string layout = !c.calibration_set.empty() ? "from set " + c.calibration_set.string()
+                               : !c.layout_file.empty()   ? "table from " + c.layout_file.string()
+                                                          : fmt::format("regular, origin ({}, {}) px",
+                                                                        p.grid.origin_x_px, p.grid.origin_y_px);
+    const auto in_map = p.valid_map.empty() ? p.grid.count()
+                                            : static_cast<int>(std::count(p.valid_map.begin(), p.valid_map.end(), 1));
+    const auto bad = std::count_if(p.bad_pixels.begin(), p.bad_pixels.end(), [](auto v) { return v != 0; });
     std::cout << "config OK: " << check_path << "\n"
-              << "  camera        " << p.camera.width_px << " x " << p.camera.height_px << " px, "
-              << core::pixel_format_name(p.camera.format) << "\n"
-              << "  grid          " << p.grid.n_subap_x << " x " << p.grid.n_subap_y << " subapertures, pitch "
-              << p.grid.pitch_px << " px, origin (" << p.grid.origin_x_px << ", " << p.grid.origin_y_px
-              << ") px\n"
-              << "  dark          " << (c.dark_frame.empty() ? "none" : c.dark_frame.string()) << "\n"
-              << "  background    " << core::background_mode_name(p.background) << "\n"
-              << "  min flux      " << p.min_flux_adu << " ADU, min snr " << p.min_snr << "\n"
-              << "  centroider    " << core::describe(p.centroider) << "\n"
-              << "  saturation    " << (std::isfinite(saturation) ? std::to_string(saturation) + " ADU (raw)" : std::string("not checked")) << "\n"
-              << "  frame cap     " << c.max_frame_bytes << " bytes per part\n"
-              << "  frames in     " << c.endpoints.frames_in << "\n"
-              << "  measurements  " << c.endpoints.measurements_out << "\n"
-              << "  control       " << c.endpoints.control << "\n";
+              << fmt::format("  camera        {} x {} px, {}\n", p.camera.width_px, p.camera.height_px,
+                             core::pixel_format_name(p.camera.format))
+              << fmt::format("  grid          {} x {} subapertures of {} px, layout {}\n", p.grid.n_subap_x,
+                             p.grid.n_subap_y, p.grid.pitch_px, layout)
+              << fmt::format("  valid map     {} of {} subapertures{}\n", in_map, p.grid.count(),
+                             p.valid_map.empty() ? " (no map)" : "")
+              << fmt::format("  reference     {}\n", p.reference_slope_x_px.empty() ? "none (the layout's reference points)"
+                                                                                     : "reference slopes from the set")
+              << fmt::format("  dark          {}\n", !c.dark_frame.empty() ? c.dark_frame.string()
+                                                       : !p.dark_adu.empty() ? "from the set" : "none")
+              << fmt::format("  flat          {}; bad pixels {}\n", p.flat.empty() ? "none" : "from the set", bad)
+              << fmt::format("  background    {}\n", core::background_mode_name(p.background))
+              << fmt::format("  min flux      {} ADU, min snr {}\n", p.min_flux_adu, p.min_snr)
+              << fmt::format("  centroider    {}\n", core::describe(p.centroider))
+              << fmt::format("  saturation    {}\n", std::isfinite(saturation) ? fmt::format("{} ADU (raw)", saturation)
+                                                                              : std::string("not checked"))
+              << fmt::format("  slopes in     {} ({} per px)\n", core::slope_unit_name(c.slope_unit), c.units_per_px)
+              << fmt::format("  frame cap     {} bytes per part\n", c.max_frame_bytes)
+              << fmt::format("  frames in     {}\n", c.endpoints.frames_in)
+              << fmt::format("  measurements  {}\n", c.endpoints.measurements_out)
+              << fmt::format("  control       {}\n", c.endpoints.control)
+              << fmt::format("  calibrations  {}\n", c.calibration_dir.string());
     for (const auto& w : c.warnings) std::cout << "warning: " << w << "\n";
     return 0;
   }

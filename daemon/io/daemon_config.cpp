@@ -217,7 +217,7 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
             ? "[calibration] no dark_frame and background = \"none\": the camera bias stays in every box, "
               "pulling each centroid toward its box centre; configure a dark or background = \"border\""
             : "[calibration] no dark_frame: each box's border background removes bias and diffuse light, "
-              "but fixed-pattern structure (hot pixels, uneven bias) stays in; acquire a dark for best results");
+              "but fixed-pattern structure (hot pixels, uneven bias) stays in; acquire a dark (`slopecast calibrate dark`, light off) for best results");
   if (!dark.empty() && what.load_images) {
     const std::filesystem::path& path = c.dark_frame;
     auto image = read_fits_image(path);

@@ -190,3 +190,67 @@ TEST_CASE("the [daemon] performance keys", "[config]") {
   CHECK_THAT(error_of(with(kGood, "frame_queue_depth = 8", "worker_threads = 0")), Catch::Contains("worker_threads: must be 1..64"));
   CHECK_THAT(error_of(with(kGood, "frame_queue_depth = 8", "newest_frame_only = 1")), Catch::Contains("newest_frame_only: expected true or false"));
 }
+
+TEST_CASE("[optics] sets the published slope unit from the optics, with the formula's inputs required",
+          "[config][units]") {
+  const std::string optics = "[optics]\npixel_size_um = 10\nlenslet_focal_length_mm = 5\nlenslet_pitch_um = 150\n";
+  auto unit_of = [&](const std::string& unit) {
+    auto r = io::parse_daemon_config(std::string(kGood) + optics + "slope_unit = \"" + unit + "\"\n", "test.toml", ".");
+    REQUIRE(std::holds_alternative<io::DaemonConfig>(r));
+    return std::get<io::DaemonConfig>(r).units_per_px;
+  };
+  // Hand-worked: 10 um / 5 mm = 2 mrad per px; times 150 um = 300 nm.
+  CHECK(unit_of("px") == 1.0);
+  CHECK(unit_of("rad") == Approx(2e-3).epsilon(1e-12));
+  CHECK(unit_of("nm") == Approx(300.0).epsilon(1e-12));
+  CHECK_THAT(error_of(std::string(kGood) + optics + "slope_unit = \"arcsec\"\n"),
+             Catch::Contains("plate_scale_arcsec_per_px"));
+  CHECK_THAT(error_of(std::string(kGood) + "[optics]\nslope_unit = \"mrad\"\n"), Catch::Contains("not one of"));
+  CHECK_THAT(error_of(std::string(kGood) + "[optics]\nslope_unit = \"rad\"\n"), Catch::Contains("pixel_size_um"));
+  CHECK_THAT(error_of(std::string(kGood) + optics + "focal = 3\n"), Catch::Contains("[optics] has an unknown key"));
+}
+
+TEST_CASE("valid maps from a pupil and from a FITS mask, and layouts from a file", "[config][calibration]") {
+  testing::TempDir dir;
+  // Pupil of 240 px centred on the 16 x 16 grid of 15 px: the four corner
+  // boxes lie outside it, the 2 x 2 around the centre inside a 25 % hole.
+  const std::string pupil = "pupil_centre_x_px = 119.5\npupil_centre_y_px = 119.5\npupil_diameter_px = 240\n"
+                            "pupil_obstruction = 0.25\n";
+  auto r = io::parse_daemon_config(with(kGood, "[calibration]\n", "[calibration]\n" + pupil), "t.toml", dir.path());
+  REQUIRE(std::holds_alternative<io::DaemonConfig>(r));
+  const auto& map = std::get<io::DaemonConfig>(r).pipeline.valid_map;
+  REQUIRE(map.size() == 256u);
+  CHECK(map[0] == 0);
+  CHECK(map[15] == 0);
+  CHECK(map[7 * 16 + 7] == 0);
+  CHECK(map[0 * 16 + 7] == 1);
+  CHECK_THAT(error_of(with(kGood, "[calibration]\n", "[calibration]\npupil_obstruction = 0.3\n")),
+             Catch::Contains("pupil_diameter_px"));
+
+  // A FITS mask of the grid's shape, combined with the pupil.
+  std::vector<float> mask(256, 1.0f);
+  mask[0 * 16 + 7] = 0.0f;
+  REQUIRE(io::write_fits_image(dir / "mask.fits", 16, 16, mask).empty());
+  r = io::parse_daemon_config(with(kGood, "[calibration]\n", "[calibration]\nvalid_map_file = \"mask.fits\"\n" + pupil),
+                              "t.toml", dir.path());
+  REQUIRE(std::holds_alternative<io::DaemonConfig>(r));
+  CHECK(std::get<io::DaemonConfig>(r).pipeline.valid_map[7] == 0);
+  REQUIRE(io::write_fits_image(dir / "small.fits", 8, 8, std::vector<float>(64, 1.0f)).empty());
+  CHECK_THAT(error_of(with(kGood, "[calibration]\n", "[calibration]\nvalid_map_file = \"small.fits\"\n"), dir.path()),
+             Catch::Contains("8 x 8, the grid 16 x 16"));
+
+  // A hand-written layout table: two boxes for a 2 x 1 grid of 15 px.
+  std::ofstream(dir / "boxes.csv") << "x0,y0,width,height,ref_x,ref_y\n10,20,15,15,17.2,27\n40,21,15,15,47,28.5\n";
+  const std::string grid = "[lenslet_grid]\nsubapertures_x = 2\nsubapertures_y = 1\npitch_px = 15\n"
+                           "layout_file = \"boxes.csv\"\n";
+  std::string text = with(kGood, "[lenslet_grid]\nsubapertures_x = 16\nsubapertures_y = 16\npitch_px = 15\n", grid);
+  r = io::parse_daemon_config(text, "t.toml", dir.path());
+  if (auto* e = std::get_if<io::ConfigError>(&r)) FAIL(e->message);
+  CHECK(std::get<io::DaemonConfig>(r).pipeline.layout.size() == 2u);
+  CHECK(std::get<io::DaemonConfig>(r).pipeline.layout[1].ref_y == 28.5);
+  CHECK_THAT(error_of(with(text, "subapertures_x = 2", "subapertures_x = 3"), dir.path()),
+             Catch::Contains("the layout has 2 subapertures, the grid 3 x 1 = 3"));
+  CHECK_THAT(error_of(with(text, "pitch_px = 15", "pitch_px = 14"), dir.path()), Catch::Contains("pitch_px = 14"));
+  CHECK_THAT(error_of(with(text, "[calibration]\n", "[calibration]\nset = \"x\"\n"), dir.path()),
+             Catch::Contains("layout_file cannot be used with it"));
+}
