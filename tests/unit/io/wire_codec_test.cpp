@@ -99,11 +99,33 @@ TEST_CASE("a measurement round-trips with packed arrays and validity", "[wire]")
   CHECK(back.n_valid() == 2);
   CHECK(back.stage_times().centroid_us() == 12.5f);
 
+  CHECK(back.units_per_px() == 1.0);
+
+  // In physical units: slopes and their rms scaled, the unit and the factor
+  // on the message (10 um pixels, 5 mm lenslet focal length, 150 um pitch:
+  // 300 nm per px, tests/unit/core/calibration_test).
+  stamp.slope_unit = core::SlopeUnit::kNm;
+  stamp.units_per_px = 300.0;
+  io::encode_measurement(m, stamp, msg);
+  CHECK(msg.slope_unit() == v1::SLOPE_UNIT_NM);
+  CHECK(msg.units_per_px() == 300.0);
+  CHECK(msg.slope_x(0) == 75.0f);
+  CHECK(msg.slope_y(2) == 600.0f);
+  CHECK(msg.slope_rms_x() == 300.0f);
+  CHECK(msg.flux_adu(0) == 1000.0f);  // everything else stays as it was
+  stamp.slope_unit = core::SlopeUnit::kPx;
+  stamp.units_per_px = 1.0;
+
   // Reusing the message for a smaller frame leaves no stale entries.
   m.resize(2);
   io::encode_measurement(m, stamp, msg);
   CHECK(msg.slope_x_size() == 2);
   CHECK(msg.valid_size() == 2);
+}
+
+TEST_CASE("the masked flag keeps its wire value", "[wire]") {
+  CHECK(static_cast<int>(core::kFlagMasked) == v1::SUBAPERTURE_FLAG_MASKED);
+  CHECK(static_cast<int>(core::kFlagNarrow) == v1::SUBAPERTURE_FLAG_NARROW);
 }
 
 TEST_CASE("pixel type codes map both ways", "[wire]") {
