@@ -52,4 +52,16 @@ inline T load_pixel(const std::byte* row, std::size_t i) {
   return v;
 }
 
+// One pixel of any format as a double: for the rare single-pixel reads
+// (bad-pixel repair), not for loops over a frame.
+inline double load_pixel_as_double(PixelFormat f, const std::byte* row, std::size_t i) {
+  switch (f) {
+    case PixelFormat::kU8: return load_pixel<std::uint8_t>(row, i);
+    case PixelFormat::kU16: return load_pixel<std::uint16_t>(row, i);
+    case PixelFormat::kU32: return load_pixel<std::uint32_t>(row, i);
+    case PixelFormat::kF32: return load_pixel<float>(row, i);
+  }
+  return 0.0;
+}
+
 }  // namespace slopecast::core

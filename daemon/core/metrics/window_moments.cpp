@@ -42,7 +42,8 @@ FoldedDark fold_dark(std::span<const float> dark, int image_width, int x0, int y
   return d;
 }
 
-WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level) {
+WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level,
+                             std::span<const PixelPatch> patches) {
   // Integer sums over the window's columns (exact: each term < 2^32, at
   // most a few hundred of them).
   std::int64_t r00 = 0, r10 = 0, r20 = 0, r01 = 0, r11 = 0, r02 = 0;
@@ -65,12 +66,20 @@ WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const
   // The level's sums over the box geometry.
   const double sx = 0.5 * w * (w - 1.0), sy = 0.5 * h * (h - 1.0);
   const double sxx = (w - 1.0) * w * (2.0 * w - 1.0) / 6.0, syy = (h - 1.0) * h * (2.0 * h - 1.0) / 6.0;
-  const double m00 = static_cast<double>(r00) - dark.d00 - level * w * h;
-  const double m10 = static_cast<double>(r10) - dark.d10 - level * h * sx;
-  const double m01 = static_cast<double>(r01) - dark.d01 - level * w * sy;
-  const double m20 = static_cast<double>(r20) - dark.d20 - level * h * sxx;
-  const double m02 = static_cast<double>(r02) - dark.d02 - level * w * syy;
-  const double m11 = static_cast<double>(r11) - dark.d11 - level * sx * sy;
+  double m00 = static_cast<double>(r00) - dark.d00 - level * w * h;
+  double m10 = static_cast<double>(r10) - dark.d10 - level * h * sx;
+  double m01 = static_cast<double>(r01) - dark.d01 - level * w * sy;
+  double m20 = static_cast<double>(r20) - dark.d20 - level * h * sxx;
+  double m02 = static_cast<double>(r02) - dark.d02 - level * w * syy;
+  double m11 = static_cast<double>(r11) - dark.d11 - level * sx * sy;
+  for (const PixelPatch& q : patches) {
+    m00 += q.delta;
+    m10 += q.x * q.delta;
+    m01 += q.y * q.delta;
+    m20 += static_cast<double>(q.x) * q.x * q.delta;
+    m02 += static_cast<double>(q.y) * q.y * q.delta;
+    m11 += static_cast<double>(q.x) * q.y * q.delta;
+  }
   WindowMoments m;
   m.flux = m00;
   m.peak = peak;

@@ -71,11 +71,20 @@ struct FoldedDark {
 // dark: row-major, image_width wide (empty: no dark, all zero).
 FoldedDark fold_dark(std::span<const float> dark, int image_width, int x0, int y0, int width, int height);
 
+// A change to one pixel of a window, added to every sum before the moments
+// are formed: a bad pixel's repair (its replacement minus its value) on the
+// folded path, where pixels are never written out.
+struct PixelPatch {
+  int x = 0, y = 0;    // window-local
+  double delta = 0.0;  // ADU
+};
+
 struct RawColumns;
 // Moments of the w x h window whose raw column sums are cols[x0 .. x0+w-1]
-// (accumulated over h rows), minus dark and a uniform level. peak is the
-// brightest raw pixel (the column maxima), not corrected.
-WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level);
+// (accumulated over h rows), minus dark and a uniform level, plus patches.
+// peak is the brightest raw pixel (the column maxima), not corrected.
+WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level,
+                             std::span<const PixelPatch> patches = {});
 
 class MomentAccumulator {
  public:

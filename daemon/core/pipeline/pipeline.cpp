@@ -97,8 +97,7 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
     : settings_(std::move(settings)),
       boxes_(settings_.layout.empty() ? regular_layout(settings_.grid) : settings_.layout),
       runs_(box_runs(boxes_)),
-      folded_(raw_columns_exact(settings_.camera.format, settings_.grid.pitch_px) && settings_.flat.empty() &&
-              settings_.bad_pixels.empty()),
+      folded_(raw_columns_exact(settings_.camera.format, settings_.grid.pitch_px) && settings_.flat.empty()),
       needs_pixels_(settings_.centroider.kind != CentroiderKind::kCog || !folded_),
       simd_(simd.value_or(best_simd_level())),
       kernel_(folded_ ? raw_column_kernel(settings_.camera.format, simd_) : nullptr),
@@ -132,28 +131,43 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
       if (!settings_.bad_pixels.empty() && settings_.bad_pixels[k]) gain_[k] = 0.0f;
     }
   }
-  // Each run's bad pixels, with the strip indices of their good neighbours.
-  run_fixes_.assign(runs_.size() + 1, 0);
+  // Each box's bad pixels, with their good neighbours in the run's strip.
+  box_fixes_.assign(boxes_.size() + 1, 0);
+  std::size_t most_in_a_box = 0;
   for (std::size_t r = 0; r < runs_.size(); ++r) {
-    run_fixes_[r] = static_cast<int>(bad_fixes_.size());
-    if (settings_.bad_pixels.empty()) continue;
-    const int p = settings_.grid.pitch_px, x0 = boxes_[runs_[r].first].x0, y0 = boxes_[runs_[r].first].y0;
-    const int sw = runs_[r].count * p, W = settings_.camera.width_px;
-    const auto bad = [&](int x, int y) { return settings_.bad_pixels[static_cast<std::size_t>(y0 + y) * W + x0 + x] != 0; };
-    for (int y = 0; y < p; ++y)
-      for (int x = 0; x < sw; ++x) {
-        if (!bad(x, y)) continue;
-        BadFix f;
-        f.at = y * sw + x;
-        for (int dy = -1; dy <= 1; ++dy)
-          for (int dx = -1; dx <= 1; ++dx) {
-            const int nx = x + dx, ny = y + dy;
-            if ((dx || dy) && nx >= 0 && ny >= 0 && nx < sw && ny < p && !bad(nx, ny)) f.from[f.n++] = ny * sw + nx;
-          }
-        bad_fixes_.push_back(f);
-      }
+    const int p = settings_.grid.pitch_px, first = runs_[r].first;
+    const int x0 = boxes_[first].x0, y0 = boxes_[first].y0, sw = runs_[r].count * p, W = settings_.camera.width_px;
+    const auto bad = [&](int x, int y) {
+      return !settings_.bad_pixels.empty() && settings_.bad_pixels[static_cast<std::size_t>(y0 + y) * W + x0 + x] != 0;
+    };
+    for (int ix = 0; ix < runs_[r].count; ++ix) {
+      const std::size_t before = bad_fixes_.size();
+      box_fixes_[first + ix] = static_cast<int>(before);
+      for (int y = 0; y < p; ++y)
+        for (int x = ix * p; x < (ix + 1) * p; ++x) {
+          if (!bad(x, y)) continue;
+          BadFix f;
+          f.at = y * sw + x;
+          f.lx = x - ix * p;
+          f.ly = y;
+          f.fx = x0 + x;
+          f.fy = y0 + y;
+          for (int dy = -1; dy <= 1; ++dy)
+            for (int dx = -1; dx <= 1; ++dx) {
+              const int nx = x + dx, ny = y + dy;
+              if (!(dx || dy) || nx < 0 || ny < 0 || nx >= sw || ny >= p || bad(nx, ny)) continue;
+              f.from[f.n] = ny * sw + nx;
+              f.from_x[f.n] = x0 + nx;
+              f.from_y[f.n] = y0 + ny;
+              ++f.n;
+            }
+          bad_fixes_.push_back(f);
+        }
+      most_in_a_box = std::max(most_in_a_box, bad_fixes_.size() - before);
+    }
   }
-  run_fixes_[runs_.size()] = static_cast<int>(bad_fixes_.size());
+  box_fixes_[boxes_.size()] = static_cast<int>(bad_fixes_.size());
+  for (Lane& l : lanes_) l.patches.resize(most_in_a_box);
   if (folded_) {
     const int p = settings_.grid.pitch_px;
     ring_pixels_ = border_pixel_count(p, p);
@@ -199,7 +213,7 @@ void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, 
     if (needs_pixels_) {
       correct_box(image, s.dark_adu, strip_box, lane.strip,
                   folded_ ? std::span<float>() : std::span<float>(lane.column_max), gain_);
-      for (int k = run_fixes_[r]; k < run_fixes_[r + 1]; ++k) {
+      for (int k = box_fixes_[row0]; k < box_fixes_[row0 + n_boxes]; ++k) {
         const BadFix& f = bad_fixes_[k];
         float sum = 0.0f;
         for (int j = 0; j < f.n; ++j) sum += lane.strip[f.from[j]];
@@ -220,8 +234,12 @@ void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, 
       const float level = subtract && b.finite ? b.level_adu : 0.0f;
       if (needs_pixels_ && level != 0.0f) subtract_constant(lane.strip.data() + ix * p, p, p, strip_width, level);
       if (folded_) {
-        contexts_[i].moments = folded_moments(cols, ix * p, p, p, folded_dark_[i], level);
-        raw_max_[i] = static_cast<float>(contexts_[i].moments.peak);
+        const int nbad = box_fixes_[i + 1] - box_fixes_[i];
+        if (nbad > 0) repair_folded(image, i, lane);
+        contexts_[i].moments = folded_moments(cols, ix * p, p, p, folded_dark_[i], level,
+                                              std::span<const PixelPatch>(lane.patches.data(), nbad));
+        raw_max_[i] = static_cast<float>(nbad > 0 ? good_raw_max(image, box) : contexts_[i].moments.peak);
+        contexts_[i].moments.peak = raw_max_[i];
       } else {
         const float* cm = lane.column_max.data() + ix * p;
         raw_max_[i] = *std::max_element(cm, cm + p);
@@ -232,8 +250,12 @@ void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, 
       // its saturated pixels.
       if (check_saturation && raw_max_[i] >= saturation_adu_) {
         correct_box(image, {}, box, lane.raw_box);
-        saturated_pixels_[i] = static_cast<std::uint32_t>(
-            std::count_if(lane.raw_box.begin(), lane.raw_box.end(), [&](float v) { return v >= saturation_adu_; }));
+        std::uint32_t n = 0;
+        for (int y = 0; y < p; ++y)
+          for (int x = 0; x < p; ++x)
+            n += lane.raw_box[static_cast<std::size_t>(y) * p + x] >= saturation_adu_ &&
+                 !is_bad(box.x0 + x, box.y0 + y);
+        saturated_pixels_[i] = n;
       }
     }
     if (!folded_) {
@@ -253,6 +275,37 @@ void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, 
       for (int ix = 0; ix < n_boxes; ++ix) est[ix] = lane.centroider->measure(none, ctx[ix]);
     }
   }
+}
+
+bool Pipeline::is_bad(int x, int y) const {
+  return !settings_.bad_pixels.empty() &&
+         settings_.bad_pixels[static_cast<std::size_t>(y) * settings_.camera.width_px + x] != 0;
+}
+
+void Pipeline::repair_folded(const ImageView& image, int i, Lane& lane) const {
+  const auto dark = [&](int x, int y) {
+    return settings_.dark_adu.empty() ? 0.0
+                                      : settings_.dark_adu[static_cast<std::size_t>(y) * settings_.camera.width_px + x];
+  };
+  const auto corrected = [&](int x, int y) {
+    return load_pixel_as_double(image.format, image.row(y), static_cast<std::size_t>(x)) - dark(x, y);
+  };
+  int k = 0;
+  for (int b = box_fixes_[i]; b < box_fixes_[i + 1]; ++b, ++k) {
+    const BadFix& f = bad_fixes_[b];
+    double mean = 0.0;
+    for (int j = 0; j < f.n; ++j) mean += corrected(f.from_x[j], f.from_y[j]);
+    mean = f.n ? mean / f.n : 0.0;
+    lane.patches[k] = {f.lx, f.ly, mean - corrected(f.fx, f.fy)};
+  }
+}
+
+double Pipeline::good_raw_max(const ImageView& image, const Box& box) const {
+  double best = 0.0;
+  for (int y = box.y0; y < box.y0 + box.height; ++y)
+    for (int x = box.x0; x < box.x0 + box.width; ++x)
+      if (!is_bad(x, y)) best = std::max(best, load_pixel_as_double(image.format, image.row(y), static_cast<std::size_t>(x)));
+  return best;
 }
 
 void Pipeline::finish(FrameMeasurement& out) {

@@ -60,15 +60,18 @@ struct PipelineSettings {
   std::vector<float> dark_adu;
   // Flat field, row-major camera-sized, mean 1 over the pupil
   // (calibration/flat_field.h); empty for none. The pipeline measures
-  // (raw - dark) / flat. A flat (or a bad-pixel map) sends u8/u16 frames
-  // down the float path: the division is per pixel and cannot be folded
-  // into per-box constants.
+  // (raw - dark) / flat. A flat sends u8/u16 frames down the float path:
+  // the division is per pixel and cannot be folded into per-box constants.
   std::vector<float> flat;
   // Bad-pixel map, row-major camera-sized, non-zero = bad
   // (calibration/bad_pixels.h); empty for none. A bad pixel is replaced by
-  // the mean of its good neighbours (of the 8, those inside the same row of
-  // boxes) before anything else reads the box, and never counts as the
-  // box's peak or as saturated.
+  // the mean of its good neighbours (of the 8, those inside the same run of
+  // boxes), corrected, and never counts as the box's peak or as saturated.
+  // On the float path the replacement is written into the strip before
+  // anything reads it; on the folded path it is added to the box's sums
+  // (PixelPatch), so a few bad pixels cost a few reads, not the fast path.
+  // One difference: the folded path's border ring still reads a bad pixel
+  // on the ring as it is (the ring's median shrugs off one outlier).
   std::vector<std::uint8_t> bad_pixels;
   // Per-box background estimate, subtracted after the dark (background.h).
   BackgroundMode background = BackgroundMode::kBorder;
@@ -140,8 +143,7 @@ class Pipeline {
   // The boxes in force (settings().layout, or the grid's regular layout).
   const std::vector<SubapertureBox>& boxes() const { return boxes_; }
   // Whether u8/u16 pixels go through the integer column sums (the folded
-  // path: no flat, no bad pixels), and whether the method reads corrected
-  // pixels.
+  // path: no flat), and whether the method reads corrected pixels.
   bool folded() const { return folded_; }
   bool needs_pixels() const { return needs_pixels_; }
   SimdLevel simd() const { return simd_; }
@@ -160,6 +162,12 @@ class Pipeline {
   // Pass 2 of measure(): flags, slopes and frame figures from the per-box
   // results of pass 1.
   void decide(FrameMeasurement& out);
+  struct Lane;
+  bool is_bad(int x, int y) const;
+  // Folded path: box i's bad-pixel repairs into lane.patches.
+  void repair_folded(const ImageView& image, int i, Lane& lane) const;
+  // The brightest raw pixel of the box that is not bad.
+  double good_raw_max(const ImageView& image, const Box& box) const;
 
   // One thread's scratch.
   struct Lane {
@@ -172,19 +180,25 @@ class Pipeline {
     std::vector<WindowMoments> strip_moments;
     std::vector<std::uint32_t> col_s, col_sy, col_syy, col_max;  // raw column sums (folded path)
     std::vector<float> raw_box;              // one box's raw pixels, to count saturated ones
+    std::vector<PixelPatch> patches;         // one box's bad-pixel repairs (folded path)
   };
 
-  // A bad pixel of a run's strip: its strip index and its good neighbours'.
+  // A bad pixel and its good neighbours (of the 8, those inside the same
+  // run of boxes): strip indices for the float path, frame coordinates for
+  // the folded path, where the repair is a patch to the box's sums.
   struct BadFix {
-    int at = 0;
+    int at = 0;             // strip index
+    int lx = 0, ly = 0;     // box-local
+    int fx = 0, fy = 0;     // frame
     int n = 0;
-    int from[8] = {};
+    int from[8] = {};       // strip indices
+    int from_x[8] = {}, from_y[8] = {};  // frame coordinates
   };
 
   PipelineSettings settings_;
   std::vector<float> gain_;             // 1 / flat, 0 at bad pixels; empty when neither is set
-  std::vector<BadFix> bad_fixes_;       // by run
-  std::vector<int> run_fixes_;          // run r's fixes: [run_fixes_[r], run_fixes_[r+1])
+  std::vector<BadFix> bad_fixes_;       // grouped by box, boxes in index order
+  std::vector<int> box_fixes_;          // box i's fixes: [box_fixes_[i], box_fixes_[i+1])
   std::vector<SubapertureBox> boxes_;
   std::vector<BoxRun> runs_;
   std::vector<double> offset_x_, offset_y_;  // per box: x0 - ref_x - reference slope (slope = local centroid + offset)
