@@ -8,7 +8,8 @@
 // Pipeline::measure with each method at its default settings (dark,
 // border background, moments, the method, flags and slopes), the CoG with
 // two worker threads, and the CoG plus building and serialising the
-// measurement protobuf as the daemon does per frame. Each runs hot (the
+// measurement protobuf as the daemon does per frame, and the CoG over
+// layouts that are not a regular grid and with calibration applied. Each runs hot (the
 // frame in cache from the previous iteration) and cold (an 8 MB buffer
 // swept between frames, outside the timing, so the frame and the dark come
 // from beyond L2: the development machines' L2 is 2 x 2 MB; their L3, 260
@@ -23,6 +24,8 @@
 #include <benchmark/benchmark.h>
 #include <fmt/format.h>
 
+#include <algorithm>
+#include <cmath>
 #include <cstring>
 #include <iostream>
 #include <map>
@@ -32,6 +35,7 @@
 
 #include "client/sim/detector_model.h"
 #include "client/sim/spot_field.h"
+#include "client/sim/spot_image.h"
 #include "daemon/app/row_workers.h"
 #include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/wire_codec.h"
@@ -144,6 +148,65 @@ void BM_measure(benchmark::State& state, Sensor s, core::CentroiderKind kind, bo
   });
 }
 
+// The CoG over layouts that are not a regular grid, and with calibration:
+//   turned     -- the boxes of a lattice turned by 0.4 degrees: each row of
+//                 boxes steps down a pixel every ~14 boxes, so a 40-box row
+//                 is read as 3 runs (subaperture_layout.h); the frame is one
+//                 box row taller than the grid's (the ratios below are to
+//                 the plain sum of the grid's frame: ~7 % more pixels);
+//   single     -- every box its own run (the general path);
+//   calibrated -- turned, plus reference slopes, a valid map and 0.1 % bad
+//                 pixels (patched into the sums on the folded path);
+//   flat       -- calibrated plus a flat field (the float path).
+enum class Layout { kTurned, kSingle, kCalibrated, kFlat };
+
+void BM_measure_layout(benchmark::State& state, Sensor s, Layout layout, bool cold) {
+  Fixture f = make_fixture(s);
+  auto& ps = f.settings;
+  ps.layout = core::regular_layout(ps.grid);
+  if (layout != Layout::kSingle) {
+    // Every row steps down the same way; the frame grows by one box row so
+    // that the last row still fits, and its spots are drawn anew, centred
+    // in the moved boxes as a registration would place them.
+    const double step = std::tan(0.4 * 3.14159265358979 / 180.0) * s.pitch;
+    for (int iy = 0; iy < s.n; ++iy)
+      for (int ix = 0; ix < s.n; ++ix)
+        ps.layout[static_cast<std::size_t>(iy) * s.n + ix].y0 += static_cast<int>(std::lround(ix * step)) % s.pitch;
+    const int w = s.n * s.pitch, h = w + s.pitch;
+    ps.camera.height_px = h;
+    ps.dark_adu.assign(static_cast<std::size_t>(w) * h, 100.0f);
+    std::vector<double> expected(static_cast<std::size_t>(w) * h, 0.0);
+    std::mt19937_64 rng(2);
+    std::uniform_real_distribution<double> offset(-0.5, 0.5);
+    for (auto& b : ps.layout) {
+      const double c = 0.5 * (s.pitch - 1);
+      sim::add_gaussian_spot(expected, w, b.x0 + c + offset(rng), b.y0 + c + offset(rng), 0.9, 5000,
+                             sim::ClipRect{b.x0, b.y0, b.x0 + s.pitch, b.y0 + s.pitch});
+    }
+    f.frame.resize(expected.size());
+    sim::expose(expected, sim::DetectorModel{}, rng, f.frame);
+  } else {
+    for (int iy = 0; iy < s.n; ++iy)
+      std::reverse(ps.layout.begin() + static_cast<long>(iy) * s.n, ps.layout.begin() + static_cast<long>(iy + 1) * s.n);
+  }
+  if (layout == Layout::kCalibrated || layout == Layout::kFlat) {
+    const auto n = static_cast<std::size_t>(ps.grid.count());
+    ps.reference_slope_x_px.assign(n, 0.05f);
+    ps.reference_slope_y_px.assign(n, -0.05f);
+    ps.valid_map.assign(n, 1);
+    ps.bad_pixels.assign(ps.dark_adu.size(), 0);
+    std::mt19937_64 rng(3);
+    for (std::size_t k = 0; k < ps.bad_pixels.size() / 1000; ++k) ps.bad_pixels[rng() % ps.bad_pixels.size()] = 1;
+  }
+  if (layout == Layout::kFlat) ps.flat.assign(ps.dark_adu.size(), 1.0f);
+  core::Pipeline p(ps);
+  auto m = p.make_measurement();
+  per_frame(state, f, cold, [&] {
+    p.measure(f.view(), m);
+    benchmark::DoNotOptimize(m.slope_x_px.data());
+  });
+}
+
 void BM_measure_threads(benchmark::State& state, Sensor s, int threads, bool cold) {
   const Fixture f = make_fixture(s);
   core::Pipeline p(f.settings, threads);
@@ -216,6 +279,10 @@ int main(int argc, char** argv) {
                                          BM_measure, s, k, cold));
       cap(benchmark::RegisterBenchmark(name("measure/cog-2-threads").c_str(), BM_measure_threads, s, 2, cold));
       cap(benchmark::RegisterBenchmark(name("measure+encode/cog").c_str(), BM_measure_encode, s, cold));
+      for (auto [label, layout] : {std::pair{"turned", Layout::kTurned}, std::pair{"single", Layout::kSingle},
+                                   std::pair{"calibrated", Layout::kCalibrated}, std::pair{"flat", Layout::kFlat}})
+        cap(benchmark::RegisterBenchmark(name(fmt::format("measure/cog-{}", label)).c_str(), BM_measure_layout, s,
+                                         layout, cold));
     }
   benchmark::Initialize(&argc, argv);
   RatioReporter reporter;
@@ -245,6 +312,10 @@ int main(int argc, char** argv) {
       row(std::string(core::centroider_name(k)), fmt::format("measure/{}", core::centroider_name(k)));
     row("cog, 2 threads", "measure/cog-2-threads");
     row("cog + encode", "measure+encode/cog");
+    row("cog, turned layout", "measure/cog-turned");
+    row("cog, 1 box per run", "measure/cog-single");
+    row("cog, calibrated", "measure/cog-calibrated");
+    row("cog, calibrated+flat", "measure/cog-flat");
   }
   benchmark::Shutdown();
   return 0;
