@@ -82,6 +82,12 @@ if ! "$bin/client/cli/slopecast" status --config "$config" --wait-s 10 >/dev/nul
   exit 1
 fi
 
+if [[ -f "fixtures/$bench/calibrate.sh" ]]; then
+  # The bench calibrates the running daemon first (its own script says how).
+  # shellcheck source=/dev/null
+  source "fixtures/$bench/calibrate.sh"
+fi
+
 echo "== starting the simulated camera, geometry from $config (log: $demo/sim.log)"
 "$bin/client/cli/slopecast" sim --config "$config" "${sim_args[@]}" >"$demo/sim.log" 2>&1 &
 pids+=("$!")

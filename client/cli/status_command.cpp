@@ -41,6 +41,15 @@ void print_status(const v1::StatusReply& s) {
       s.has_last_seq() ? std::to_string(s.last_seq()) : std::string("-"), s.frames_repeated(), s.seq_restarts(),
       s.frame_connection_drops(), s.measurements_published(), s.measurement_subscribers(), s.latency_median_us(),
       s.latency_p99_us(), s.latency_max_us(), s.latency_window_frames());
+  const auto& c = s.calibration();
+  std::cout << fmt::format("  calibration   layout {}; {} of {} subapertures in the valid map; {}; flat {}; "
+                           "{} bad pixel(s); slopes in {}\n",
+                           c.layout(), c.subapertures_in_map(), c.n_subap_x() * c.n_subap_y(),
+                           c.reference_slopes() ? "reference slopes" : "no reference slopes", c.flat() ? "yes" : "no",
+                           c.bad_pixels(), c.slope_unit());
+  if (c.acquisition().state() == v1::ACQUISITION_STATE_RUNNING)
+    std::cout << fmt::format("  acquiring     {}: {} of {} frames\n", c.acquisition().kind_name(),
+                             c.acquisition().frames_done(), c.acquisition().frames_wanted());
   std::cout << "  rejected by reason:";
   for (const auto& r : s.rejected()) std::cout << fmt::format(" {}={}", r.reason_name(), r.count());
   std::cout << "\n";
