@@ -54,6 +54,16 @@ with fits.open(f"{s}/layout.fits") as h:
     check(np.allclose(t["REF_X"], [0.5, 2.6, 4.4, 0.5, 2.5, 4.5]), f"REF_X {t['REF_X'].tolist()}")
     check(h["LAYOUT"].columns["REF_X"].unit == "px", "REF_X unit")
 
+# Sigma clipping as astropy does it, on values slopecast wrote, for
+# slopecast's own sigma_clip to compare with (R9.2).
+from astropy.stats import sigma_clip
+with fits.open(f"{d}/clip.fits") as h:
+    values = h[0].data.astype(np.float64).ravel()
+clipped = sigma_clip(values, sigma=3, maxiters=5, cenfunc="median", stdfunc="std")
+kept = clipped.compressed()
+with open(f"{d}/clip.txt", "w") as out:
+    out.write(f"{np.median(kept):.10g} {np.std(kept):.10g} {kept.size}\n")
+
 # Files astropy writes, for slopecast to read.
 fits.PrimaryHDU(np.array([[0, 1, 40000], [65535, 7, 8]], dtype=np.uint16)).writeto(f"{d}/astropy_u16.fits", overwrite=True)
 fits.PrimaryHDU(np.array([[1.5, -2.25], [3e4, 0.125]], dtype=np.float64)).writeto(f"{d}/astropy_f64.fits", overwrite=True)

@@ -5,7 +5,9 @@
 
 #include <cstdlib>
 #include <fstream>
+#include <random>
 
+#include "daemon/core/calibration/bad_pixels.h"
 #include "daemon/io/calibration_set.h"
 #include "daemon/io/fits_image.h"
 #include "tests/support/temp_dir.h"
@@ -160,6 +162,13 @@ TEST_CASE("FITS files from slopecast read correctly in astropy, and astropy's re
   const std::vector<float> u16 = {0, 1, 2, 32767, 32768, 65535};
   REQUIRE(io::write_fits_cube(dir / "u16.fits", 3, 2, 1, u16, io::FitsPixel::kU16).empty());
   REQUIRE(io::save_calibration_set(small_set(), dir / "set").empty());
+  // 10 000 values of a Gaussian of mean 100 and rms 3, and 60 outliers.
+  std::vector<float> values;
+  std::mt19937_64 rng(5);
+  std::normal_distribution<double> g(100.0, 3.0);
+  for (int k = 0; k < 10000; ++k) values.push_back(static_cast<float>(g(rng)));
+  for (int k = 0; k < 60; ++k) values.push_back(static_cast<float>(112.0 + 7.0 * k));
+  REQUIRE(io::write_fits_image(dir / "clip.fits", 20, 503, values).empty());  // 10 060 values
 
   const std::string script = std::string(SLOPECAST_SOURCE_DIR) + "/tests/unit/io/astropy_fits_check.py";
   const std::string cmd = "/usr/bin/python3 " + script + " " + dir.path().string() + " > " +
@@ -171,6 +180,19 @@ TEST_CASE("FITS files from slopecast read correctly in astropy, and astropy's re
                         << "\n(this test needs Debian's python3-astropy for /usr/bin/python3; `bash "
                            ".ci/quickstart.sh test` installs it)");
   REQUIRE(rc == 0);
+
+  // Sigma clipping (3 sigma, 5 rounds, median centre, population std) as
+  // astropy.stats.sigma_clip computes it on the same values.
+  {
+    std::ifstream in(dir / "clip.txt");
+    double centre = 0, spread = 0;
+    std::size_t kept = 0;
+    REQUIRE(in >> centre >> spread >> kept);
+    const core::SigmaClipped ours = core::sigma_clip(values, 3.0, 5);
+    CHECK(ours.kept == kept);
+    CHECK(ours.centre == Approx(centre).epsilon(1e-6));
+    CHECK(ours.spread == Approx(spread).epsilon(1e-6));
+  }
 
   auto u = io::read_fits_image(dir / "astropy_u16.fits");
   REQUIRE(std::holds_alternative<io::FitsImage>(u));
