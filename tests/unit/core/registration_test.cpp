@@ -45,6 +45,10 @@ TEST_CASE("registration recovers pitch, rotation and origin of a turned lattice 
   INFO("rotation " << angle << " deg; fitted pitch " << r.fit.pitch_px << " rotation " << r.fit.rotation_deg
                    << " residual " << r.fit.residual_rms_px << " spots " << r.fit.spots_used << "/"
                    << r.fit.spots_found);
+  WARN("rotation " << angle << " deg: pitch error " << r.fit.pitch_px - s.pitch_px << " px, rotation error "
+                    << r.fit.rotation_deg - s.rotation_deg << " deg, origin error "
+                    << lattice_miss(s, r.fit.origin_x_px, r.fit.origin_y_px) << " px, residual "
+                    << r.fit.residual_rms_px << " px rms");
   CHECK(r.fit.pitch_px == Approx(s.pitch_px).margin(0.01));
   CHECK(r.fit.rotation_deg == Approx(s.rotation_deg).margin(0.05));
   CHECK(lattice_miss(s, r.fit.origin_x_px, r.fit.origin_y_px) < 0.05);
