@@ -1,5 +1,5 @@
 // `slopecast calibrate`: calibrate the running daemon. Acquisitions (dark,
-// reference, valid-map, flat) average the next N frames in slopecastd and
+// sky, reference, valid-map, flat) average the next N frames in slopecastd and
 // apply the result between two frames; this command starts one, shows its
 // progress and waits for the outcome (Ctrl-C cancels it in the daemon).
 // save / load / show manage calibration sets by name; `slopecast register`
@@ -49,8 +49,8 @@ void print_summary(const v1::CalibrationReply& c) {
   std::cout << fmt::format("  valid map    {} of {} subapertures in use\n", c.subapertures_in_map(),
                            c.n_subap_x() * c.n_subap_y());
   std::cout << fmt::format("  reference    {}\n", c.reference_slopes() ? "reference slopes subtracted" : "none (slopes from the layout's reference points)");
-  std::cout << fmt::format("  dark {}, flat {}, bad pixels {}\n", c.dark() ? "yes" : "no", c.flat() ? "yes" : "no",
-                           c.bad_pixels());
+  std::cout << fmt::format("  dark {}, sky {}, flat {}, bad pixels {}\n", c.dark() ? "yes" : "no",
+                           c.sky() ? "yes" : "no", c.flat() ? "yes" : "no", c.bad_pixels());
   std::cout << fmt::format("  slopes in    {} ({} per px)\n", c.slope_unit(), c.units_per_px());
   const auto& a = c.acquisition();
   if (a.state() != v1::ACQUISITION_STATE_IDLE)
@@ -65,9 +65,11 @@ void run_calibrate(CalibrateOptions o) {
   client::ControlClient control(ctx, *endpoint);
   v1::ControlRequest request;
   auto* cal = request.mutable_calibration();
-  if (o.action == "dark" || o.action == "reference" || o.action == "valid-map" || o.action == "flat") {
+  if (o.action == "dark" || o.action == "sky" || o.action == "reference" || o.action == "valid-map" ||
+      o.action == "flat") {
     auto* start = cal->mutable_start();
     start->set_kind(o.action == "dark"        ? v1::ACQUISITION_KIND_DARK
+                    : o.action == "sky"       ? v1::ACQUISITION_KIND_SKY
                     : o.action == "reference" ? v1::ACQUISITION_KIND_REFERENCE_SLOPES
                     : o.action == "valid-map" ? v1::ACQUISITION_KIND_VALID_MAP
                                               : v1::ACQUISITION_KIND_FLAT);
@@ -125,6 +127,7 @@ void add_calibrate_command(CLI::App& app) {
                  "Also map hot, cold and noisy pixels from the same frames (sigma clipping); they are replaced "
                  "by their neighbours' mean");
   dark->add_option("--sigma", o->sigma, "Bad-pixel threshold, clipped spreads")->capture_default_str()->check(CLI::PositiveNumber);
+  acquisition("sky", "Average frames with the source off and the sky on into the sky frame (dark removed)");
   acquisition("reference", "Average the slopes of the reference source into the reference slopes");
   acquisition("valid-map", "Keep the subapertures whose mean flux reaches a fraction of the median")
       ->add_option("--fraction", o->fraction, "Fraction of the median lit flux")->capture_default_str()->check(CLI::Range(0.001, 1.0));

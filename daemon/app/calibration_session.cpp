@@ -35,6 +35,7 @@ std::string_view acquisition_kind_name(v1::AcquisitionKind k) {
     case v1::ACQUISITION_KIND_VALID_MAP: return "valid_map";
     case v1::ACQUISITION_KIND_FLAT: return "flat";
     case v1::ACQUISITION_KIND_REGISTRATION: return "registration";
+    case v1::ACQUISITION_KIND_SKY: return "sky";
     default: return "unspecified";
   }
 }
@@ -80,9 +81,10 @@ std::string CalibrationSession::start(const v1::StartAcquisitionRequest& req, co
       break;
     case v1::ACQUISITION_KIND_REFERENCE_SLOPES:
     case v1::ACQUISITION_KIND_FLAT:
+    case v1::ACQUISITION_KIND_SKY:
       break;
     default:
-      return "choose an acquisition kind: dark, reference_slopes, valid_map, flat or registration";
+      return "choose an acquisition kind: dark, sky, reference_slopes, valid_map, flat or registration";
   }
   req_ = req;
   frames_done_ = 0;
@@ -149,6 +151,15 @@ std::optional<core::PipelineSettings> CalibrationSession::finish(const core::Pip
         products["bad_pixels"] = made;
         message_ += fmt::format("; {} bad pixel(s) at {} sigma, replaced by their neighbours' mean", bad, bp.sigma);
       }
+      break;
+    }
+    case v1::ACQUISITION_KIND_SKY: {
+      next.sky_adu = frames_->mean();
+      if (!in_force.dark_adu.empty())
+        for (std::size_t k = 0; k < next.sky_adu.size(); ++k) next.sky_adu[k] -= in_force.dark_adu[k];
+      products["sky"] = made;
+      message_ = fmt::format("sky frame from {} frames applied{}", frames_done_,
+                             in_force.dark_adu.empty() ? " (no dark in force: the bias is in the sky frame)" : "");
       break;
     }
     case v1::ACQUISITION_KIND_REFERENCE_SLOPES: {
@@ -291,6 +302,7 @@ void CalibrationSession::describe(const core::PipelineSettings& s, v1::Calibrati
   out.set_reference_slopes(!s.reference_slope_x_px.empty());
   out.set_dark(!s.dark_adu.empty());
   out.set_flat(!s.flat.empty());
+  out.set_sky(!s.sky_adu.empty());
   out.set_bad_pixels(static_cast<std::uint32_t>(
       std::count_if(s.bad_pixels.begin(), s.bad_pixels.end(), [](auto v) { return v != 0; })));
   if (lattice_) {

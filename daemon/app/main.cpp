@@ -40,9 +40,25 @@ relative to the config file.
   pitch_px       = 15                  box side, px
   origin_x_px    = 0                   first box's first column
   origin_y_px    = 0                   first box's first row
+  layout_file    = "boxes.csv"         optional: boxes and reference points as a table
+                                       (CSV x0,y0,width,height,ref_x,ref_y, or FITS
+                                       with a LAYOUT table); pitch_px square boxes;
+                                       the origin is then unused
 
   [calibration]
+  set          = "calibrations/bench"  optional: start from a calibration set (layout,
+                                       valid map, reference slopes, dark, sky, flat,
+                                       bad pixels), as `slopecast calibrate save` writes
+  calibration_dir = "calibrations"     where live save/load requests name their sets
+                                       (default "calibrations")
   dark_frame   = "dark.fits"           optional; 2-D FITS, camera-sized, ADU
+  sky_frame    = "sky.fits"            optional; camera-sized, ADU, dark removed:
+                                       subtracted like the dark
+  valid_map_file = "mask.fits"         optional; n_x x n_y FITS, non-zero = in use
+  pupil_diameter_px = 350              optional pupil: subapertures with at least
+  pupil_centre_x_px = 200              pupil_min_area_fraction (default 0.5) of their
+  pupil_centre_y_px = 200              box inside the annulus are in the valid map
+  pupil_obstruction = 0.3              (central obstruction: fraction of the diameter)
   background   = "border"              "border": per box, the clipped mean of its
                                        border ring is subtracted (default);
                                        "none": nothing beyond the dark
@@ -67,6 +83,15 @@ relative to the config file.
                                        flagged (0..1; default 0, off)
 
 @CENTROIDER@
+  [optics]                             the published slope unit
+  slope_unit = "px"                    "px" (default) | "rad" (pixel_size_um /
+                                       lenslet_focal_length_mm per px) | "nm" (rad x
+                                       lenslet_pitch_um) | "arcsec" (x plate scale)
+  pixel_size_um           = 5.5
+  lenslet_focal_length_mm = 3.2
+  lenslet_pitch_um        = 57.0
+  plate_scale_arcsec_per_px = 0.25
+
   [daemon]
   frame_queue_depth     = 4            frames queued before newer ones drop (default 4)
   newest_frame_only     = false        true: when frames queue up, measure only the
@@ -145,8 +170,9 @@ int main(int argc, char** argv) {
                              p.valid_map.empty() ? " (no map)" : "")
               << fmt::format("  reference     {}\n", p.reference_slope_x_px.empty() ? "none (the layout's reference points)"
                                                                                      : "reference slopes from the set")
-              << fmt::format("  dark          {}\n", !c.dark_frame.empty() ? c.dark_frame.string()
-                                                       : !p.dark_adu.empty() ? "from the set" : "none")
+              << fmt::format("  dark          {}; sky {}\n", !c.dark_frame.empty() ? c.dark_frame.string()
+                                                       : !p.dark_adu.empty() ? "from the set" : "none",
+                             p.sky_adu.empty() ? "none" : "loaded")
               << fmt::format("  flat          {}; bad pixels {}\n", p.flat.empty() ? "none" : "from the set", bad)
               << fmt::format("  background    {}\n", core::background_mode_name(p.background))
               << fmt::format("  min flux      {} ADU, min snr {}\n", p.min_flux_adu, p.min_snr)

@@ -29,6 +29,7 @@ constexpr Product kProducts[] = {{"layout", "layout.fits"},
                                  {"valid_map", "valid_map.fits"},
                                  {"reference_slopes", "reference_slopes.fits"},
                                  {"dark", "dark.fits"},
+                                 {"sky", "sky.fits"},
                                  {"flat", "flat.fits"},
                                  {"bad_pixels", "bad_pixels.fits"}};
 
@@ -80,6 +81,7 @@ std::string write_manifest(const CalibrationSet& set, const fs::path& file) {
     const bool present = std::string(p.name) == "layout" || (std::string(p.name) == "valid_map" && !set.valid_map.empty()) ||
                          (std::string(p.name) == "reference_slopes" && !set.reference_slope_x_px.empty()) ||
                          (std::string(p.name) == "dark" && !set.dark_adu.empty()) ||
+                         (std::string(p.name) == "sky" && !set.sky_adu.empty()) ||
                          (std::string(p.name) == "flat" && !set.flat.empty()) ||
                          (std::string(p.name) == "bad_pixels" && !set.bad_pixels.empty());
     if (!present) continue;
@@ -122,6 +124,7 @@ CalibrationSet calibration_of(const core::PipelineSettings& s) {
   c.reference_slope_x_px = s.reference_slope_x_px;
   c.reference_slope_y_px = s.reference_slope_y_px;
   c.dark_adu = s.dark_adu;
+  c.sky_adu = s.sky_adu;
   c.flat = s.flat;
   c.bad_pixels = s.bad_pixels;
   return c;
@@ -138,6 +141,7 @@ std::string apply_calibration(const CalibrationSet& set, core::PipelineSettings&
   next.reference_slope_x_px = set.reference_slope_x_px;
   next.reference_slope_y_px = set.reference_slope_y_px;
   next.dark_adu = set.dark_adu;
+  next.sky_adu = set.sky_adu;
   next.flat = set.flat;
   next.bad_pixels = set.bad_pixels;
   if (auto e = core::validate(next); !e.empty()) return "the calibration does not fit the settings: " + e;
@@ -198,6 +202,7 @@ std::string save_calibration_set(const CalibrationSet& set, const fs::path& dir)
   }
   const std::size_t pixels = static_cast<std::size_t>(w) * h;
   for (auto [vec, name, what] : {std::tuple{&set.dark_adu, "dark", "dark frame, ADU"},
+                                 std::tuple{&set.sky_adu, "sky", "sky frame, ADU, dark removed"},
                                  std::tuple{&set.flat, "flat", "flat field, mean 1 over the pupil"}}) {
     if (vec->empty()) continue;
     if (vec->size() != pixels) return done(fmt::format("the {} is not {} x {} px", name, w, h));
@@ -377,7 +382,7 @@ std::variant<CalibrationSet, std::string> load_calibration_set(const fs::path& d
     set.reference_slope_x_px.assign(both.begin(), both.begin() + n);
     set.reference_slope_y_px.assign(both.begin() + n, both.end());
   }
-  for (auto [vec, name] : {std::pair{&set.dark_adu, "dark"}, std::pair{&set.flat, "flat"}}) {
+  for (auto [vec, name] : {std::pair{&set.dark_adu, "dark"}, std::pair{&set.sky_adu, "sky"}, std::pair{&set.flat, "flat"}}) {
     if (!set.made.count(name)) continue;
     auto v = read_sized(dir / (std::string(name) + ".fits"), w, h, 1, name);
     if (auto* e = std::get_if<std::string>(&v)) return fail(*e);

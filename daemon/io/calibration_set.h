@@ -12,6 +12,7 @@
 //   <set>/reference_slopes.fits  n_x x n_y x 2, BITPIX -32: plane 1 x,
 //                                plane 2 y, px
 //   <set>/dark.fits              camera-sized, BITPIX -32, ADU
+//   <set>/sky.fits               camera-sized, BITPIX -32, ADU (dark removed)
 //   <set>/flat.fits              camera-sized, BITPIX -32, mean 1 over the pupil
 //   <set>/bad_pixels.fits        camera-sized, BITPIX 8: BadPixelKind bits
 //
@@ -55,11 +56,12 @@ struct CalibrationSet {
   std::vector<std::uint8_t> valid_map;                            // empty: all in
   std::vector<float> reference_slope_x_px, reference_slope_y_px;  // empty: none
   std::vector<float> dark_adu;                                    // empty: none
+  std::vector<float> sky_adu;                                     // empty: none
   std::vector<float> flat;                                        // empty: none
   std::vector<std::uint8_t> bad_pixels;                           // empty: none
   std::optional<core::LatticeFit> lattice;                        // when registered
-  // By product: "layout", "valid_map", "reference_slopes", "dark", "flat",
-  // "bad_pixels".
+  // By product: "layout", "valid_map", "reference_slopes", "dark", "sky",
+  // "flat", "bad_pixels".
   std::map<std::string, Provenance> made;
 };
 

@@ -137,6 +137,8 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   cal.number("pupil_obstruction", pupil.obstruction, 0.0);
   cal.number("pupil_min_area_fraction", pupil_fraction, 0.0);
   cal.string("dark_frame", dark);
+  std::string sky;
+  cal.string("sky_frame", sky);
   cal.string("background", background);
   cal.number("min_flux_adu", p.min_flux_adu, 0.0);
   cal.number("min_snr", p.min_snr, 0.0);
@@ -191,8 +193,9 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   if (auto err = core::validate(p.camera); !err.empty()) return fail(err);
   if (!set.empty() && !layout_file.empty())
     return fail("[calibration] set carries its own layout; [lenslet_grid] layout_file cannot be used with it");
-  if (!set.empty() && !dark.empty())
-    return fail("[calibration] set carries its own dark (or none); dark_frame cannot be used with it");
+  if (!set.empty() && (!dark.empty() || !sky.empty()))
+    return fail("[calibration] set carries its own dark and sky (or none); dark_frame and sky_frame cannot be used "
+                "with it");
   if (layout_file.empty() && set.empty()) {
     if (auto err = core::validate(p.grid, p.camera); !err.empty()) return fail(err);
   }
@@ -228,6 +231,16 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
                               path.string(), img.width, img.height, p.camera.width_px,
                               p.camera.height_px));
     p.dark_adu = std::move(img.pixels);
+  }
+  if (!sky.empty() && what.load_images) {
+    const auto path = resolve(base_dir, sky);
+    auto image = read_fits_image(path);
+    if (auto* e = std::get_if<FitsError>(&image)) return fail("[calibration] sky_frame: " + e->message);
+    auto& img = std::get<FitsImage>(image);
+    if (img.width != p.camera.width_px || img.height != p.camera.height_px)
+      return fail(fmt::format("[calibration] sky_frame {} is {} x {} px, the camera is {} x {} px", path.string(),
+                              img.width, img.height, p.camera.width_px, p.camera.height_px));
+    p.sky_adu = std::move(img.pixels);
   }
   if (!layout_file.empty()) {
     c.layout_file = resolve(base_dir, layout_file);
@@ -287,6 +300,7 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
     core::PipelineSettings q = p;
     if (q.centroider.reference == core::ReferenceSource::kFile) q.centroider.reference = core::ReferenceSource::kGaussian;
     q.dark_adu.clear();
+    q.sky_adu.clear();
     if (auto err = core::validate(q); !err.empty()) return fail(err);
   }
   return c;

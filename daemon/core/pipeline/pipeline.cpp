@@ -49,6 +49,11 @@ std::string validate(const PipelineSettings& s) {
                        pixels, s.camera.width_px, s.camera.height_px);
   for (float v : s.dark_adu)
     if (!std::isfinite(v)) return "dark frame contains a NaN or infinite pixel";
+  if (!s.sky_adu.empty() && s.sky_adu.size() != pixels)
+    return fmt::format("sky frame has {} pixels, the camera has {} ({} x {})", s.sky_adu.size(), pixels,
+                       s.camera.width_px, s.camera.height_px);
+  for (float v : s.sky_adu)
+    if (!std::isfinite(v)) return "sky frame contains a NaN or infinite pixel";
   if (!s.flat.empty() && s.flat.size() != pixels)
     return fmt::format("flat field has {} pixels, the camera has {} ({} x {})", s.flat.size(), pixels,
                        s.camera.width_px, s.camera.height_px);
@@ -123,6 +128,9 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
     offset_x_[i] = b.x0 - b.ref_x - (rs ? settings_.reference_slope_x_px[i] : 0.0);
     offset_y_[i] = b.y0 - b.ref_y - (rs ? settings_.reference_slope_y_px[i] : 0.0);
   }
+  offset_ = settings_.dark_adu.empty() ? settings_.sky_adu : settings_.dark_adu;
+  if (!settings_.dark_adu.empty() && !settings_.sky_adu.empty())
+    for (std::size_t k = 0; k < offset_.size(); ++k) offset_[k] += settings_.sky_adu[k];
   if (!settings_.flat.empty() || !settings_.bad_pixels.empty()) {
     const std::size_t pixels = static_cast<std::size_t>(settings_.camera.width_px) * settings_.camera.height_px;
     gain_.assign(pixels, 1.0f);
@@ -171,15 +179,15 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
   if (folded_) {
     const int p = settings_.grid.pitch_px;
     ring_pixels_ = border_pixel_count(p, p);
-    if (!settings_.dark_adu.empty()) {
+    if (!offset_.empty()) {
       ring_dark_.resize(n * ring_pixels_);
       for (std::size_t i = 0; i < n; ++i)
-        ring_dark_values(settings_.dark_adu, settings_.camera.width_px, Box{boxes_[i].x0, boxes_[i].y0, p, p},
+        ring_dark_values(offset_, settings_.camera.width_px, Box{boxes_[i].x0, boxes_[i].y0, p, p},
                          ring_dark_.data() + i * ring_pixels_);
     }
     folded_dark_.resize(n);
     for (std::size_t i = 0; i < n; ++i)
-      folded_dark_[i] = fold_dark(settings_.dark_adu, settings_.camera.width_px, boxes_[i].x0, boxes_[i].y0, p, p);
+      folded_dark_[i] = fold_dark(offset_, settings_.camera.width_px, boxes_[i].x0, boxes_[i].y0, p, p);
   }
 }
 
@@ -211,7 +219,7 @@ void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, 
     // where the method reads pixels or the frame cannot be folded.
     if (folded_) kernel_(image, strip_box.x0, strip_box.y0, strip_width, p, cols);
     if (needs_pixels_) {
-      correct_box(image, s.dark_adu, strip_box, lane.strip,
+      correct_box(image, offset_, strip_box, lane.strip,
                   folded_ ? std::span<float>() : std::span<float>(lane.column_max), gain_);
       for (int k = box_fixes_[row0]; k < box_fixes_[row0 + n_boxes]; ++k) {
         const BadFix& f = bad_fixes_[k];
@@ -284,8 +292,7 @@ bool Pipeline::is_bad(int x, int y) const {
 
 void Pipeline::repair_folded(const ImageView& image, int i, Lane& lane) const {
   const auto dark = [&](int x, int y) {
-    return settings_.dark_adu.empty() ? 0.0
-                                      : settings_.dark_adu[static_cast<std::size_t>(y) * settings_.camera.width_px + x];
+    return offset_.empty() ? 0.0 : offset_[static_cast<std::size_t>(y) * settings_.camera.width_px + x];
   };
   const auto corrected = [&](int x, int y) {
     return load_pixel_as_double(image.format, image.row(y), static_cast<std::size_t>(x)) - dark(x, y);
@@ -434,7 +441,7 @@ std::variant<std::vector<float>, std::string> Pipeline::capture_reference(const 
   int used = 0;
   for (std::size_t i = 0; i < boxes_.size(); ++i) {
       if (measured.flags[i] != kFlagNone) continue;
-      correct_box(image, settings_.dark_adu, Box{boxes_[i].x0, boxes_[i].y0, p, p}, box, {}, gain_);
+      correct_box(image, offset_, Box{boxes_[i].x0, boxes_[i].y0, p, p}, box, {}, gain_);
       const WindowView w{box.data(), p, p, p};
       const BorderStats b = border_stats(w, ring);
       const float level = settings_.background == BackgroundMode::kBorder && b.finite ? b.level_adu : 0.0f;

@@ -58,6 +58,11 @@ struct PipelineSettings {
   // Dark frame, ADU, row-major camera.width_px * camera.height_px values; empty
   // for none. Subtracted from every frame before centroiding.
   std::vector<float> dark_adu;
+  // Sky frame, ADU, row-major camera-sized; empty for none: the light that
+  // reaches the detector with the source off (sky, stray light), dark
+  // removed. Subtracted like the dark, per pixel, before everything else
+  // (the pipeline folds dark + sky into one offset).
+  std::vector<float> sky_adu;
   // Flat field, row-major camera-sized, mean 1 over the pupil
   // (calibration/flat_field.h); empty for none. The pipeline measures
   // (raw - dark) / flat. A flat sends u8/u16 frames down the float path:
@@ -196,6 +201,7 @@ class Pipeline {
   };
 
   PipelineSettings settings_;
+  std::vector<float> offset_;           // dark + sky, per pixel; empty when neither is set
   std::vector<float> gain_;             // 1 / flat, 0 at bad pixels; empty when neither is set
   std::vector<BadFix> bad_fixes_;       // grouped by box, boxes in index order
   std::vector<int> box_fixes_;          // box i's fixes: [box_fixes_[i], box_fixes_[i+1])

@@ -355,6 +355,52 @@ TEST_CASE("the flat field undoes a pixel response pattern", "[calibration][flat]
   CHECK(err_flat < 0.0015);
 }
 
+TEST_CASE("a sky frame is subtracted like the dark, on both paths", "[calibration][sky]") {
+  auto s = testing::tilted_bench();
+  s.rotation_deg = 0.0;
+  s.pitch_px = 10.0;
+  s.origin_x_px = 24.5;
+  s.origin_y_px = 24.5;
+  s.dead.clear();
+  s.bright.clear();
+  s.background_e = 0.0;
+  const auto field = sim::render_lattice_field(s);
+  // Stray light: a gradient from 0 to 200 ADU across the frame, whole ADU.
+  std::vector<float> sky(400 * 400);
+  for (int y = 0; y < 400; ++y)
+    for (int x = 0; x < 400; ++x) sky[y * 400 + x] = std::floor(x * 0.5f);
+  std::vector<std::uint16_t> clean(field.image_e.size()), lit(field.image_e.size());
+  for (std::size_t k = 0; k < clean.size(); ++k) {
+    clean[k] = static_cast<std::uint16_t>(std::lround(field.image_e[k] + 100.0));
+    lit[k] = static_cast<std::uint16_t>(clean[k] + sky[k]);
+  }
+  core::PipelineSettings ps;
+  ps.camera = {400, 400, core::PixelFormat::kU16};
+  ps.grid = {35, 35, 10, 20, 20};
+  ps.background = core::BackgroundMode::kNone;  // only the frames remove the light
+  ps.dark_adu.assign(400 * 400, 100.0f);
+  ps.min_snr = 0.0;
+  core::Pipeline plain(ps);
+  auto m0 = plain.make_measurement(), m1 = plain.make_measurement();
+  plain.measure(u16_view(clean, 400, 400), m0);
+  plain.measure(u16_view(lit, 400, 400), m1);
+  const int i = 5 * 35 + 17;
+  CHECK(std::abs(m1.slope_x_px[i] - m0.slope_x_px[i]) > 0.005);  // the gradient pulls the centroid
+  ps.sky_adu = sky;
+  for (bool flat : {false, true}) {
+    if (flat) ps.flat.assign(400 * 400, 1.0f);  // the float path
+    core::Pipeline corrected(ps);
+    CHECK(corrected.folded() == !flat);
+    auto m2 = corrected.make_measurement();
+    corrected.measure(u16_view(lit, 400, 400), m2);
+    CHECK(m2.flags == m0.flags);
+    for (int k = 0; k < m0.size(); ++k) {
+      CHECK(m2.slope_x_px[k] == Approx(m0.slope_x_px[k]).margin(1e-5));
+      CHECK(m2.flux_adu[k] == Approx(m0.flux_adu[k]).margin(0.05));
+    }
+  }
+}
+
 TEST_CASE("valid maps from a pupil description and from illumination", "[calibration][valid_map]") {
   core::LensletGrid g{10, 10, 10, 0, 0};
   const auto boxes = core::regular_layout(g);

@@ -34,6 +34,8 @@ io::CalibrationSet small_set() {
   s.reference_slope_x_px = {0.1f, -0.2f, 0.3f, 0.0f, 0.05f, -0.5f};
   s.reference_slope_y_px = {1, 2, 3, 4, 5, 6};
   for (int k = 0; k < 20; ++k) s.dark_adu.push_back(0.5f * k - 3.0f);
+  s.sky_adu.assign(20, 2.5f);
+  s.sky_adu[0] = 7.0f;
   s.flat.assign(20, 1.0f);
   s.flat[7] = 1.25f;
   s.bad_pixels.assign(20, 0);
@@ -61,6 +63,7 @@ TEST_CASE("a calibration set reads back exactly as saved", "[calibration_set]") 
   CHECK(t.reference_slope_x_px == s.reference_slope_x_px);
   CHECK(t.reference_slope_y_px == s.reference_slope_y_px);
   CHECK(t.dark_adu == s.dark_adu);
+  CHECK(t.sky_adu == s.sky_adu);
   CHECK(t.flat == s.flat);
   CHECK(t.bad_pixels == s.bad_pixels);
   REQUIRE(t.lattice);
