@@ -61,6 +61,7 @@ relative to the config file.
   pupil_obstruction = 0.3              (central obstruction: fraction of the diameter)
   background   = "border"              "border": per box, the clipped mean of its
                                        border ring is subtracted (default);
+                                       "border_median": the ring's median;
                                        "none": nothing beyond the dark
   min_flux_adu = 500.0                 background-subtracted flux below this is
                                        invalid, ADU (default 0)

@@ -152,7 +152,8 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   cal.reject_unknown();
   if (!cal.error.empty()) return fail(cal.error);
   if (!core::parse_background_mode(background.c_str(), p.background))
-    return fail(fmt::format("[calibration] background: '{}' is not one of \"border\", \"none\"", background));
+    return fail(fmt::format("[calibration] background: '{}' is not one of \"border\", \"border_median\", \"none\"",
+                            background));
   if (saturation > 0.0) p.saturation_adu = saturation;
 
   if (auto err = read_centroider(table("centroider"), p.centroider); !err.empty()) return fail(err);

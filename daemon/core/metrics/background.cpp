@@ -43,12 +43,13 @@ const char* background_mode_name(BackgroundMode m) {
   switch (m) {
     case BackgroundMode::kNone: return "none";
     case BackgroundMode::kBorder: return "border";
+    case BackgroundMode::kBorderMedian: return "border_median";
   }
   return "?";
 }
 
 bool parse_background_mode(const char* name, BackgroundMode& out) {
-  for (BackgroundMode m : {BackgroundMode::kNone, BackgroundMode::kBorder})
+  for (BackgroundMode m : {BackgroundMode::kNone, BackgroundMode::kBorder, BackgroundMode::kBorderMedian})
     if (std::strcmp(background_mode_name(m), name) == 0) {
       out = m;
       return true;
@@ -190,15 +191,40 @@ BorderStats ring_stats(const float* ring, int n, float* work) {
   return b;
 }
 
+// The median estimator: level = median, sigma = 1.4826 MAD.
+BorderStats ring_median_stats(const float* ring, int n, float* work) {
+  BorderStats b;
+  b.n_border = n;
+  b.n_kept = n;
+  if (n <= 0) return b;
+  for (int k = 0; k < n; ++k)
+    if (!std::isfinite(ring[k])) {
+      b.finite = false;
+      b.n_kept = 0;
+      return b;
+    }
+  std::copy(ring, ring + n, work);
+  const float median = median_of(work, n);
+  for (int k = 0; k < n; ++k) work[k] = std::abs(ring[k] - median);
+  const float mad = median_of(work, n);
+  b.level_adu = median;
+  b.sigma_adu = std::max(1.4826f * mad, kRoundingSigma);
+  return b;
+}
+
+BorderStats stats_for(BackgroundMode mode, const float* ring, int n, float* work) {
+  return mode == BackgroundMode::kBorderMedian ? ring_median_stats(ring, n, work) : ring_stats(ring, n, work);
+}
+
 }  // namespace
 
-BorderStats border_stats(const WindowView& w, std::span<float> scratch) {
+BorderStats border_stats(const WindowView& w, std::span<float> scratch, BackgroundMode mode) {
   const int n = border_pixel_count(w.width, w.height);
   assert(scratch.size() >= 2 * static_cast<std::size_t>(n) + 8);
   float* ring = scratch.data();  // the ring's values, in ring order
   int k = 0;
   for_ring(w.width, w.height, [&](int x, int y) { ring[k++] = w.data[static_cast<std::size_t>(y) * w.stride + x]; });
-  return ring_stats(ring, n, ring + n);
+  return stats_for(mode, ring, n, ring + n);
 }
 
 namespace {
@@ -220,7 +246,7 @@ void ring_dark_values(std::span<const float> dark, int image_width, const Box& b
 }
 
 BorderStats border_stats_raw(const ImageView& image, std::span<const float> ring_dark, const Box& box,
-                             std::span<float> scratch) {
+                             std::span<float> scratch, BackgroundMode mode) {
   const int n = border_pixel_count(box.width, box.height);
   assert(scratch.size() >= 2 * static_cast<std::size_t>(n) + 8);
   assert(ring_dark.empty() || ring_dark.size() >= static_cast<std::size_t>(n));
@@ -231,7 +257,7 @@ BorderStats border_stats_raw(const ImageView& image, std::span<const float> ring
     case PixelFormat::kU32: gather_ring<std::uint32_t>(image, d, box, scratch.data()); break;
     case PixelFormat::kF32: gather_ring<float>(image, d, box, scratch.data()); break;
   }
-  return ring_stats(scratch.data(), n, scratch.data() + n);
+  return stats_for(mode, scratch.data(), n, scratch.data() + n);
 }
 
 void subtract_constant(float* data, int width, int height, int stride, float value) {

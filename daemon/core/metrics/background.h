@@ -41,9 +41,13 @@ namespace slopecast::core {
 enum class BackgroundMode {
   kNone,          // nothing subtracted (a dark frame is expected to do it)
   kBorder,        // clipped mean of the box's border ring, subtracted from the box
+  kBorderMedian,  // median of the border ring (noise: 1.4826 MAD), subtracted
 };
 
-// "none" / "border"; parse gives false for anything else.
+// True for the modes that subtract a level per box.
+inline bool subtracts_border(BackgroundMode m) { return m != BackgroundMode::kNone; }
+
+// "none" / "border" / "border_median"; parse gives false for anything else.
 const char* background_mode_name(BackgroundMode m);
 bool parse_background_mode(const char* name, BackgroundMode& out);
 
@@ -64,10 +68,13 @@ int border_pixel_count(int width, int height);
 // Floats of scratch border_stats() needs for a w x h window.
 inline int border_scratch_size(int width, int height) { return 2 * border_pixel_count(width, height) + 8; }
 
-// Level and noise of the window's border ring, as above. scratch must hold at
+// Level and noise of the window's border ring, as above (kBorderMedian:
+// level the ring's median, noise 1.4826 times its median absolute deviation
+// (R2.1), floored likewise, n_kept the whole ring). scratch must hold at
 // least border_scratch_size(w, h) floats; it is overwritten.
 // Allocation-free.
-BorderStats border_stats(const WindowView& window, std::span<float> scratch);
+BorderStats border_stats(const WindowView& window, std::span<float> scratch,
+                         BackgroundMode mode = BackgroundMode::kBorder);
 
 // The same from the raw frame: the ring of box `box` of the image, minus
 // ring_dark (the dark's values at the ring pixels, in ring order, as
@@ -75,7 +82,7 @@ BorderStats border_stats(const WindowView& window, std::span<float> scratch);
 // the rest of the box. Identical to border_stats() of the corrected window.
 struct Box;
 BorderStats border_stats_raw(const ImageView& image, std::span<const float> ring_dark, const Box& box,
-                             std::span<float> scratch);
+                             std::span<float> scratch, BackgroundMode mode = BackgroundMode::kBorder);
 // The dark frame's values at a box's ring pixels, in ring order (computed
 // once per box, so that the frame loop reads them contiguously). dark is
 // row-major, image_width wide.

@@ -77,7 +77,7 @@ std::string validate(const PipelineSettings& s) {
   if (auto e = validate(s.centroider, s.grid.pitch_px); !e.empty()) return "centroider: " + e;
   if (s.saturation_adu && !(*s.saturation_adu > 0.0))
     return fmt::format("saturation_adu must be > 0, got {}", *s.saturation_adu);
-  if (s.background == BackgroundMode::kBorder && s.grid.pitch_px < kMinPitchForBorderBackground)
+  if (subtracts_border(s.background) && s.grid.pitch_px < kMinPitchForBorderBackground)
     return fmt::format(
         "background = \"border\" needs pitch_px >= {} so that the spot has room inside the "
         "border ring; pitch_px is {} (use background = \"none\" with a dark frame)",
@@ -206,7 +206,7 @@ void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, 
   const PipelineSettings& s = settings_;
   Lane& lane = lanes_[static_cast<std::size_t>(lane_index)];
   const int p = s.grid.pitch_px;
-  const bool subtract = s.background == BackgroundMode::kBorder;
+  const bool subtract = subtracts_border(s.background);
   const bool check_saturation = std::isfinite(saturation_adu_);
   const RawColumns cols{lane.col_s.data(), lane.col_sy.data(), lane.col_syy.data(), lane.col_max.data()};
 
@@ -232,13 +232,13 @@ void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, 
       const int i = row0 + ix;
       const Box box{boxes_[i].x0, boxes_[i].y0, p, p};
       BorderStats& b = borders_[i];
-      b = needs_pixels_ ? border_stats(strip.window(ix), lane.border)
+      b = needs_pixels_ ? border_stats(strip.window(ix), lane.border, s.background)
                         : border_stats_raw(image,
                                            ring_dark_.empty()
                                                ? std::span<const float>()
                                                : std::span<const float>(ring_dark_).subspan(
                                                      static_cast<std::size_t>(i) * ring_pixels_, ring_pixels_),
-                                           box, lane.border);
+                                           box, lane.border, s.background);
       const float level = subtract && b.finite ? b.level_adu : 0.0f;
       if (needs_pixels_ && level != 0.0f) subtract_constant(lane.strip.data() + ix * p, p, p, strip_width, level);
       if (folded_) {
@@ -328,7 +328,7 @@ void Pipeline::decide(FrameMeasurement& out) {
   const double near_lo = edge_lo + s.edge_margin_px, near_hi = edge_hi - s.edge_margin_px;
   const bool check_contrast = s.min_contrast > 0.0 && s.centroider.kind == CentroiderKind::kCorrelation;
   const int n_pixels = p * p;
-  const bool subtract = s.background == BackgroundMode::kBorder;
+  const bool subtract = subtracts_border(s.background);
   const bool check_saturation = std::isfinite(saturation_adu_);
 
   // A ring of ~56 pixels gives each box's noise to ~10 %; where it happens
@@ -443,8 +443,8 @@ std::variant<std::vector<float>, std::string> Pipeline::capture_reference(const 
       if (measured.flags[i] != kFlagNone) continue;
       correct_box(image, offset_, Box{boxes_[i].x0, boxes_[i].y0, p, p}, box, {}, gain_);
       const WindowView w{box.data(), p, p, p};
-      const BorderStats b = border_stats(w, ring);
-      const float level = settings_.background == BackgroundMode::kBorder && b.finite ? b.level_adu : 0.0f;
+      const BorderStats b = border_stats(w, ring, settings_.background);
+      const float level = subtracts_border(settings_.background) && b.finite ? b.level_adu : 0.0f;
       // The spot's offset from the box centre (its slope is measured from the
       // reference point, which need not be the centre).
       const double centre = 0.5 * (p - 1);

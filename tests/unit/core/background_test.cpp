@@ -6,6 +6,7 @@
 #include <random>
 #include <vector>
 
+#include "daemon/core/frame/box_correction.h"
 #include "daemon/core/metrics/background.h"
 #include "daemon/core/pipeline/pipeline.h"
 
@@ -26,6 +27,48 @@ TEST_CASE("the border ring's level ignores a hot pixel and the spot inside", "[b
   CHECK(b.level_adu == 10.0f);
   // Identical ring values: the rms is floored at the rounding noise 1/sqrt(12).
   CHECK(b.sigma_adu == Approx(1.0 / std::sqrt(12.0)));
+}
+
+TEST_CASE("the median estimator on worked numbers, raw and corrected alike", "[background]") {
+  // 5 x 5 window, ring of 16 pixels (in ring order it does not matter):
+  // values 1..16, with 16 replaced by a hot 900. Median of 1..15, 900 =
+  // (8 + 9)/2 = 8.5; absolute deviations 7.5, 6.5, ..., 0.5, 0.5, ..., 6.5,
+  // 891.5: their median is (3.5 + 4.5)/2 = 4 -> sigma 1.4826 * 4.
+  std::vector<float> w(25, 1000.0f);
+  std::vector<float> ring_values;
+  for (int k = 1; k <= 15; ++k) ring_values.push_back(static_cast<float>(k));
+  ring_values.push_back(900.0f);
+  int k = 0;
+  for (int y = 0; y < 5; ++y)
+    for (int x = 0; x < 5; ++x)
+      if (x == 0 || y == 0 || x == 4 || y == 4) w[y * 5 + x] = ring_values[k++];
+  std::vector<float> scratch(core::border_scratch_size(5, 5));
+  const auto b = core::border_stats({w.data(), 5, 5, 5}, scratch, core::BackgroundMode::kBorderMedian);
+  CHECK(b.level_adu == 8.5f);
+  CHECK(b.sigma_adu == Approx(1.4826 * 4.0));
+  CHECK(b.n_kept == 16);
+  // The same from a raw u16 frame with a dark of 2 ADU (folded path).
+  std::vector<std::uint16_t> raw(25);
+  for (int i = 0; i < 25; ++i) raw[i] = static_cast<std::uint16_t>(w[i] + 2.0f);
+  const std::vector<float> dark(16, 2.0f);
+  const core::ImageView view{std::as_bytes(std::span(raw)), 5, 5, 10, core::PixelFormat::kU16};
+  const auto r = core::border_stats_raw(view, dark, core::Box{0, 0, 5, 5}, scratch, core::BackgroundMode::kBorderMedian);
+  CHECK(r.level_adu == 8.5f);
+  CHECK(r.sigma_adu == b.sigma_adu);
+  // Through the pipeline: a flat 40-ADU pedestal is gone.
+  core::PipelineSettings ps;
+  ps.camera = {30, 30, core::PixelFormat::kU16};
+  ps.grid = {3, 3, 10, 0, 0};
+  ps.background = core::BackgroundMode::kBorderMedian;
+  ps.min_snr = 0.0;
+  REQUIRE(core::validate(ps).empty());
+  std::vector<std::uint16_t> frame(900, 40);
+  frame[5 * 30 + 5] = 1040;  // one bright pixel at the centre of box (0, 0)'s interior
+  core::Pipeline pipe(ps);
+  auto m = pipe.make_measurement();
+  pipe.measure({std::as_bytes(std::span(frame)), 30, 30, 60, core::PixelFormat::kU16}, m);
+  CHECK(m.background_adu[0] == 40.0f);
+  CHECK(m.flux_adu[0] == 1000.0f);
 }
 
 TEST_CASE("a NaN in the ring gives no statistics rather than a NaN level", "[background]") {
