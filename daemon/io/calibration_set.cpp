@@ -114,19 +114,28 @@ std::string utc_now_iso() {
   return buf;
 }
 
+namespace {
+// The products a set and the pipeline settings both carry, under the same
+// names, copied one way or the other.
+template <typename From, typename To>
+void copy_products(const From& from, To& to) {
+  to.valid_map = from.valid_map;
+  to.reference_slope_x_px = from.reference_slope_x_px;
+  to.reference_slope_y_px = from.reference_slope_y_px;
+  to.dark_adu = from.dark_adu;
+  to.sky_adu = from.sky_adu;
+  to.flat = from.flat;
+  to.bad_pixels = from.bad_pixels;
+}
+}  // namespace
+
 CalibrationSet calibration_of(const core::PipelineSettings& s) {
   CalibrationSet c;
   c.camera_width_px = s.camera.width_px;
   c.camera_height_px = s.camera.height_px;
   c.grid = core::LensletGrid{s.grid.n_subap_x, s.grid.n_subap_y, s.grid.pitch_px, 0, 0};
   c.layout = s.layout.empty() ? core::regular_layout(s.grid) : s.layout;
-  c.valid_map = s.valid_map;
-  c.reference_slope_x_px = s.reference_slope_x_px;
-  c.reference_slope_y_px = s.reference_slope_y_px;
-  c.dark_adu = s.dark_adu;
-  c.sky_adu = s.sky_adu;
-  c.flat = s.flat;
-  c.bad_pixels = s.bad_pixels;
+  copy_products(s, c);
   return c;
 }
 
@@ -137,13 +146,7 @@ std::string apply_calibration(const CalibrationSet& set, core::PipelineSettings&
   core::PipelineSettings next = settings;
   next.grid = set.grid;
   next.layout = set.layout;
-  next.valid_map = set.valid_map;
-  next.reference_slope_x_px = set.reference_slope_x_px;
-  next.reference_slope_y_px = set.reference_slope_y_px;
-  next.dark_adu = set.dark_adu;
-  next.sky_adu = set.sky_adu;
-  next.flat = set.flat;
-  next.bad_pixels = set.bad_pixels;
+  copy_products(set, next);
   if (auto e = core::validate(next); !e.empty()) return "the calibration does not fit the settings: " + e;
   settings = std::move(next);
   return {};

@@ -52,6 +52,20 @@ core::PipelineSettings settings_from(const core::Registration& r, const sim::Lat
   return p;
 }
 
+// The bench untilted on a 10 px grid whose boxes start at (20, 20): lattice
+// point (i, j) is the centre of box (i, j) of LensletGrid{35, 35, 10, 20, 20};
+// no dead or bright lenslets.
+sim::LatticeFieldSettings square_bench() {
+  auto s = testing::tilted_bench();
+  s.rotation_deg = 0.0;
+  s.pitch_px = 10.0;
+  s.origin_x_px = 24.5;
+  s.origin_y_px = 24.5;
+  s.dead.clear();
+  s.bright.clear();
+  return s;
+}
+
 struct SlopeStats {
   double mean_x = 0, mean_y = 0, rms_x = 0, rms_y = 0;  // over subapertures of the per-subaperture means
   int valid = 0;
@@ -142,11 +156,7 @@ TEST_CASE("after registration and reference slopes, a flat wavefront reads zero 
 }
 
 TEST_CASE("a regular grid given as a layout table measures exactly as the grid", "[calibration][layout]") {
-  auto s = testing::tilted_bench();
-  s.rotation_deg = 0.0;
-  s.pitch_px = 10.0;
-  s.origin_x_px = 24.5;
-  s.origin_y_px = 24.5;
+  auto s = square_bench();
   const auto field = sim::render_lattice_field(s);
   std::mt19937_64 rng(3);
   const auto px = testing::expose_u16(field, testing::bench_detector(), rng);
@@ -232,13 +242,7 @@ TEST_CASE("sigma clipping finds planted hot, dead and noisy pixels and nothing o
 }
 
 TEST_CASE("a hot pixel in a box pulls the centroid unless the bad-pixel map replaces it", "[calibration][bad_pixels]") {
-  auto s = testing::tilted_bench();
-  s.rotation_deg = 0.0;
-  s.pitch_px = 10.0;
-  s.origin_x_px = 24.5;
-  s.origin_y_px = 24.5;
-  s.dead.clear();
-  s.bright.clear();
+  auto s = square_bench();
   const auto field = sim::render_lattice_field(s);
   sim::DetectorModel quiet = testing::bench_detector();
   quiet.photon_noise = false;
@@ -356,13 +360,7 @@ TEST_CASE("the flat field undoes a pixel response pattern", "[calibration][flat]
 }
 
 TEST_CASE("a sky frame is subtracted like the dark, on both paths", "[calibration][sky]") {
-  auto s = testing::tilted_bench();
-  s.rotation_deg = 0.0;
-  s.pitch_px = 10.0;
-  s.origin_x_px = 24.5;
-  s.origin_y_px = 24.5;
-  s.dead.clear();
-  s.bright.clear();
+  auto s = square_bench();
   s.background_e = 0.0;
   const auto field = sim::render_lattice_field(s);
   // Stray light: a gradient from 0 to 200 ADU across the frame, whole ADU.
