@@ -72,9 +72,14 @@ TEST_CASE("a full calibration from the command line, saved and reloaded by a res
   REQUIRE(a.start(kBench + "[calibration]\ncalibration_dir = \"cal\"\n"));
   const auto t0 = std::chrono::steady_clock::now();
 
-  {  // Dark, with the light off.
+  {  // Dark, with the light off; then a sky frame (nothing but noise here).
     testing::ChildProcess sim(SLOPECAST_PATH, sim_args(a, "dark", 1000000, 4, 1), a.dir / "sim_dark.log");
     CHECK(run_cli(a, {"calibrate", "dark", "--frames", "30", "--bad-pixels"}, "dark.log") == 0);
+    CHECK(run_cli(a, {"calibrate", "sky", "--frames", "10"}, "sky.log") == 0);
+  }
+  {  // A flat under even light.
+    testing::ChildProcess sim(SLOPECAST_PATH, sim_args(a, "uniform", 1000000, 4, 5), a.dir / "sim_flat.log");
+    CHECK(run_cli(a, {"calibrate", "flat", "--frames", "10"}, "flat.log") == 0);
   }
   {  // Registration, valid map and reference slopes on the lattice.
     testing::ChildProcess sim(SLOPECAST_PATH, sim_args(a, "lattice", 1000000, 8, 2), a.dir / "sim_lattice.log");
@@ -84,7 +89,7 @@ TEST_CASE("a full calibration from the command line, saved and reloaded by a res
   }
   CHECK(run_cli(a, {"calibrate", "save", "bench"}, "save.log") == 0);
   const double took_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-  WARN("full calibration (dark, registration, valid map, reference, save) took " << took_s << " s");
+  WARN("full calibration (dark, sky, flat, registration, valid map, reference, save) took " << took_s << " s");
 
   const v1::CalibrationReply c = calibration_of(a);
   REQUIRE(c.has_lattice());
@@ -93,10 +98,12 @@ TEST_CASE("a full calibration from the command line, saved and reloaded by a res
   CHECK(c.lattice().rotation_deg() == Approx(0.4).margin(0.05));
   CHECK(c.reference_slopes());
   CHECK(c.dark());
+  CHECK(c.sky());
+  CHECK(c.flat());
   CHECK(c.subapertures_in_map() > 800u);
   const fs::path set = a.dir / "cal" / "bench";
   for (const char* f : {"calibration.toml", "layout.fits", "valid_map.fits", "reference_slopes.fits", "dark.fits",
-                        "bad_pixels.fits"})
+                        "sky.fits", "flat.fits", "bad_pixels.fits"})
     CHECK(fs::exists(set / f));
   CHECK_FALSE(fs::exists(a.dir / "cal" / "bench.partial"));
 
