@@ -99,7 +99,7 @@ relative to the config file.
                                        newest (the others are counted as skipped);
                                        false: measure every frame in order (default)
   measurement_queue_depth = 64         measurements queued per subscriber before drops (default 64)
-  latency_window_frames = 4096         frames behind the status latency figures
+  latency_window_frames = 4096         frames behind the status latency figures (16..65536)
   stale_after_s         = 1.0          no frame for this long: stream state "stale"
   max_seq_jump          = 100000       a larger forward seq jump is a restart, not
                                        missed frames

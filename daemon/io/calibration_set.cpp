@@ -243,8 +243,8 @@ namespace {
 // Reads product `name`'s FITS cube and checks its size.
 std::variant<std::vector<float>, std::string> read_sized(const fs::path& file, int w, int h, int planes,
                                                          const char* what) {
-  auto cube = read_fits_cube(file);
-  if (auto* e = std::get_if<FitsError>(&cube)) return e->message;
+  auto cube = read_fits_cube(file, FitsShape{w, h, planes});
+  if (auto* e = std::get_if<FitsError>(&cube)) return what + std::string(": ") + e->message;
   const FitsCube& c = std::get<FitsCube>(cube);
   if (c.width != w || c.height != h || c.planes != planes)
     return fmt::format("{} '{}' is {} x {} x {}, expected {} x {} x {}", what, file.string(), c.width, c.height,
@@ -299,7 +299,11 @@ std::variant<CalibrationSet, std::string> load_calibration_set(const fs::path& d
   if (!fs::is_regular_file(manifest)) return fail(fmt::format("no {} in the folder", kCalibrationManifest));
   toml::value root;
   try {
-    root = toml::parse(manifest.string());
+    std::ifstream in(manifest, std::ios::binary);
+    std::string text((std::istreambuf_iterator<char>(in)), {});
+    if (auto e = check_toml_shape(text); !e.empty()) return fail(e);
+    std::istringstream stream(text);
+    root = toml::parse(stream, manifest.string());
   } catch (const std::exception& e) {
     return fail(e.what());
   }

@@ -2,6 +2,7 @@
 
 #include <cmath>
 #include <functional>
+#include <limits>
 #include <memory>
 
 #include <fitsio.h>
@@ -94,7 +95,7 @@ const FitsColumn* FitsTable::find(const std::string& name) const {
   return nullptr;
 }
 
-std::variant<FitsCube, FitsError> read_fits_cube(const std::filesystem::path& path) {
+std::variant<FitsCube, FitsError> read_fits_cube(const std::filesystem::path& path, std::optional<FitsShape> expect) {
   auto fail = [&](const std::string& why) {
     return FitsError{fmt::format("cannot read FITS image '{}': {}", path.string(), why)};
   };
@@ -109,6 +110,9 @@ std::variant<FitsCube, FitsError> read_fits_cube(const std::filesystem::path& pa
   if (naxes[0] < 1 || naxes[1] < 1 || naxes[0] > kMaxSide || naxes[1] > kMaxSide || naxes[2] < 1 ||
       naxes[2] > kMaxPlanes)
     return fail(fmt::format("size {} x {} x {} is out of range", naxes[0], naxes[1], naxes[2]));
+  if (expect && (naxes[0] != expect->width || naxes[1] != expect->height || naxes[2] != expect->planes))
+    return fail(fmt::format("it is {} x {} x {}, expected {} x {} x {}", naxes[0], naxes[1], naxes[2], expect->width,
+                            expect->height, expect->planes));
   FitsCube c;
   c.width = static_cast<int>(naxes[0]);
   c.height = static_cast<int>(naxes[1]);
@@ -116,19 +120,22 @@ std::variant<FitsCube, FitsError> read_fits_cube(const std::filesystem::path& pa
   c.pixels.resize(static_cast<std::size_t>(c.width) * c.height * c.planes);
   long first[3] = {1, 1, 1};
   int any_null = 0;
-  if (fits_read_pix(f.get(), TFLOAT, first, static_cast<LONGLONG>(c.pixels.size()), nullptr, c.pixels.data(),
+  // Undefined pixels (BLANK in integer images) come back as NaN and are
+  // refused below with the other non-finite ones.
+  float undefined = std::numeric_limits<float>::quiet_NaN();
+  if (fits_read_pix(f.get(), TFLOAT, first, static_cast<LONGLONG>(c.pixels.size()), &undefined, c.pixels.data(),
                     &any_null, &status))
     return fail(fits_reason(status));
   const std::size_t plane = static_cast<std::size_t>(c.width) * c.height;
   for (std::size_t i = 0; i < c.pixels.size(); ++i)
     if (!std::isfinite(c.pixels[i]))
-      return fail(fmt::format("pixel ({}, {}) of plane {} is not a finite number", i % plane % c.width,
+      return fail(fmt::format("pixel ({}, {}) of plane {} is not a finite number (NaN, infinite or undefined)", i % plane % c.width,
                               i % plane / c.width, i / plane));
   return c;
 }
 
-std::variant<FitsImage, FitsError> read_fits_image(const std::filesystem::path& path) {
-  auto cube = read_fits_cube(path);
+std::variant<FitsImage, FitsError> read_fits_image(const std::filesystem::path& path, std::optional<FitsShape> expect) {
+  auto cube = read_fits_cube(path, expect);
   if (auto* e = std::get_if<FitsError>(&cube)) return *e;
   FitsCube& c = std::get<FitsCube>(cube);
   if (c.planes != 1)

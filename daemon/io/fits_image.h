@@ -16,6 +16,7 @@
 
 #include <cstdint>
 #include <filesystem>
+#include <optional>
 #include <span>
 #include <string>
 #include <utility>
@@ -54,14 +55,23 @@ struct FitsHeader {
   std::vector<std::string> history;  // one HISTORY card (or more, wrapped) per entry
 };
 
-// The primary HDU must hold a 2-D image (a 3-D image with NAXIS3 = 1 is
-// accepted too). NaN or infinite pixels are refused: a calibration frame with
-// holes must be repaired, not silently used.
-std::variant<FitsImage, FitsError> read_fits_image(const std::filesystem::path& path);
+// The size a reader expects, checked against the header before any pixel
+// is read (a wrong 16384 x 16384 file is refused, not loaded).
+struct FitsShape {
+  int width = 0, height = 0, planes = 1;
+};
 
-// A 2-D image (planes = 1) or a 3-D cube from the primary HDU; NaN or
-// infinite pixels refused likewise.
-std::variant<FitsCube, FitsError> read_fits_cube(const std::filesystem::path& path);
+// The primary HDU must hold a 2-D image (a 3-D image with NAXIS3 = 1 is
+// accepted too). NaN or infinite pixels are refused, and so are integer
+// pixels marked undefined by BLANK: a calibration frame with holes must be
+// repaired, not silently used.
+std::variant<FitsImage, FitsError> read_fits_image(const std::filesystem::path& path,
+                                                   std::optional<FitsShape> expect = std::nullopt);
+
+// A 2-D image (planes = 1) or a 3-D cube from the primary HDU; refusals as
+// above.
+std::variant<FitsCube, FitsError> read_fits_cube(const std::filesystem::path& path,
+                                                 std::optional<FitsShape> expect = std::nullopt);
 
 // Writes (replacing any existing file) a BITPIX = -32 primary image.
 // Returns an empty string on success, otherwise the reason.

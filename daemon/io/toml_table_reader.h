@@ -3,6 +3,7 @@
 // the calibration manifest both use it.
 #pragma once
 
+#include <cmath>
 #include <set>
 #include <string>
 
@@ -10,6 +11,50 @@
 #include <toml.hpp>
 
 namespace slopecast::io {
+
+// The parser recurses once per level of nested arrays or inline tables, so
+// a file nested thousands deep overflows its stack. Checked before parsing:
+// at most kMaxTomlBytes of text and kMaxTomlNesting levels of [ and {
+// (counted outside strings and comments). Empty when fine, else why not.
+inline constexpr std::size_t kMaxTomlBytes = 1 << 20;
+inline constexpr int kMaxTomlNesting = 32;
+inline std::string check_toml_shape(const std::string& text) {
+  if (text.size() > kMaxTomlBytes)
+    return fmt::format("the file is {} bytes; a config or manifest is at most {} bytes", text.size(), kMaxTomlBytes);
+  int depth = 0, line = 1;
+  for (std::size_t i = 0; i < text.size(); ++i) {
+    const char c = text[i];
+    if (c == '\n') ++line;
+    if (c == '#') {  // a comment runs to the end of the line
+      while (i + 1 < text.size() && text[i + 1] != '\n') ++i;
+      continue;
+    }
+    if (c == '"' || c == '\'') {  // a string: skip it, escapes and triple quotes included
+      const bool triple = text.compare(i, 3, std::string(3, c)) == 0;
+      i += triple ? 3 : 1;
+      for (; i < text.size(); ++i) {
+        if (text[i] == '\n') ++line;
+        if (c == '"' && text[i] == '\\') {
+          ++i;
+          continue;
+        }
+        if (text[i] == c && (!triple || text.compare(i, 3, std::string(3, c)) == 0)) {
+          if (triple) i += 2;
+          break;
+        }
+        if (!triple && text[i] == '\n') break;
+      }
+      continue;
+    }
+    if (c == '[' || c == '{') {
+      if (++depth > kMaxTomlNesting)
+        return fmt::format("line {}: arrays or inline tables nested more than {} deep", line, kMaxTomlNesting);
+    } else if ((c == ']' || c == '}') && depth > 0) {
+      --depth;
+    }
+  }
+  return {};
+}
 
 // Reads typed values out of one TOML table, remembering which keys were used
 // so that unknown keys can be reported afterwards.
@@ -27,12 +72,17 @@ class TableReader {
     if (n < min || n > max) return fail(key, fmt::format("must be {}..{}, got {}", min, max, n));
     out = static_cast<int>(n);
   }
+  // Numbers beyond +-1e300 (or written as inf/nan) are refused: no setting
+  // of ours means anything there, and 1e400 would otherwise arrive as the
+  // largest double, silently.
   void number(const char* key, double& out, double min) {
     const toml::value* v = find(key);
     if (!v || !error.empty()) return;
     if (v->is_integer()) out = static_cast<double>(v->as_integer());
     else if (v->is_floating()) out = v->as_floating();
     else return fail(key, "expected a number");
+    if (!std::isfinite(out) || std::abs(out) > 1e300)
+      return fail(key, fmt::format("must be a finite number of reasonable size, got {}", out));
     if (!(out >= min)) return fail(key, fmt::format("must be >= {}, got {}", min, out));
   }
   void boolean(const char* key, bool& out) {
@@ -46,6 +96,15 @@ class TableReader {
     if (!v || !error.empty()) return;
     if (!v->is_string()) return fail(key, "expected a string");
     out = v->as_string().str;
+  }
+  // A file path: a string that must not be empty (leave the key out for
+  // "none").
+  void path(const char* key, std::string& out) {
+    const toml::value* v = find(key);
+    if (!v || !error.empty()) return;
+    if (!v->is_string()) return fail(key, "expected a string (a file path)");
+    out = v->as_string().str;
+    if (out.empty()) return fail(key, "is an empty path; leave the key out for none");
   }
   // After all reads: any key not read is an error.
   void reject_unknown() {

@@ -92,7 +92,7 @@ TEST_CASE("the dark frame is loaded relative to the config and must fit the came
   CHECK(c.pipeline.dark_adu.size() == 240u * 240u);
   CHECK(c.pipeline.dark_adu[1234] == 101.5f);
 
-  CHECK_THAT(error_of(with(text, "dark.fits", "small.fits"), dir), Catch::Contains("is 10 x 10 px"));
+  CHECK_THAT(error_of(with(text, "dark.fits", "small.fits"), dir), Catch::Contains("it is 10 x 10 x 1, expected 240 x 240 x 1"));
   CHECK_THAT(error_of(with(text, "dark.fits", "missing.fits"), dir), Catch::Contains("no such file"));
   auto missing = io::load_daemon_config(dir / "nothing.toml");
   CHECK_THAT(std::get<io::ConfigError>(missing).message, Catch::Contains("cannot open config file"));
@@ -237,7 +237,7 @@ TEST_CASE("valid maps from a pupil and from a FITS mask, and layouts from a file
   CHECK(std::get<io::DaemonConfig>(r).pipeline.valid_map[7] == 0);
   REQUIRE(io::write_fits_image(dir / "small.fits", 8, 8, std::vector<float>(64, 1.0f)).empty());
   CHECK_THAT(error_of(with(kGood, "[calibration]\n", "[calibration]\nvalid_map_file = \"small.fits\"\n"), dir.path()),
-             Catch::Contains("8 x 8, the grid 16 x 16"));
+             Catch::Contains("it is 8 x 8 x 1, expected 16 x 16 x 1"));
 
   // A hand-written layout table: two boxes for a 2 x 1 grid of 15 px.
   std::ofstream(dir / "boxes.csv") << "x0,y0,width,height,ref_x,ref_y\n10,20,15,15,17.2,27\n40,21,15,15,47,28.5\n";
@@ -253,4 +253,38 @@ TEST_CASE("valid maps from a pupil and from a FITS mask, and layouts from a file
   CHECK_THAT(error_of(with(text, "pitch_px = 15", "pitch_px = 14"), dir.path()), Catch::Contains("pitch_px = 14"));
   CHECK_THAT(error_of(with(text, "[calibration]\n", "[calibration]\nset = \"x\"\n"), dir.path()),
              Catch::Contains("layout_file cannot be used with it"));
+}
+
+// Regression tests for config defects found by an adversarial run (issue
+// "Hardening"): each used to crash or be silently accepted.
+TEST_CASE("deeply nested or huge config text is refused before the parser sees it", "[config][hardening]") {
+  // 10 000 levels of arrays overflowed the parser's stack (SIGSEGV).
+  const std::string arrays = std::string(kGood) + "[extra]\nx = " + std::string(10000, '[') + std::string(10000, ']') + "\n";
+  CHECK_THAT(error_of(arrays), Catch::Contains("nested more than 32 deep"));
+  std::string tables = std::string(kGood) + "[extra]\nx = ";
+  for (int k = 0; k < 10000; ++k) tables += "{a = ";
+  tables += "1" + std::string(10000, '}') + "\n";
+  CHECK_THAT(error_of(tables), Catch::Contains("nested more than 32 deep"));
+  // Brackets inside strings and comments do not count.
+  CHECK_THAT(error_of(with(kGood, "[daemon]", "# [[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[\n[daemon]")),
+             !Catch::Contains("nested"));
+  CHECK_THAT(error_of(std::string(2 << 20, ' ')), Catch::Contains("at most 1048576 bytes"));
+}
+
+TEST_CASE("config numbers beyond any meaning and empty paths are refused", "[config][hardening]") {
+  CHECK_THAT(error_of(with(kGood, "min_flux_adu = 250.5", "min_flux_adu = 1e400")),
+             Catch::Contains("min_flux_adu"));
+  CHECK_THAT(error_of(with(kGood, "min_flux_adu = 250.5", "min_flux_adu = inf")), Catch::Contains("finite"));
+  CHECK_THAT(error_of(with(kGood, "min_flux_adu = 250.5", "min_flux_adu = nan")), Catch::Contains("finite"));
+  CHECK_THAT(error_of(with(kGood, "[calibration]\n", "[calibration]\ndark_frame = \"\"\n")),
+             Catch::Contains("dark_frame: is an empty path"));
+  CHECK_THAT(error_of(with(kGood, "frame_queue_depth = 8", "frame_queue_depth = 8\nlatency_window_frames = 1000000")),
+             Catch::Contains("latency_window_frames: must be 16..65536"));
+}
+
+TEST_CASE("a config path that is a directory is named as one", "[config][hardening]") {
+  testing::TempDir dir;
+  auto r = io::load_daemon_config(dir.path());
+  REQUIRE(std::holds_alternative<io::ConfigError>(r));
+  CHECK_THAT(std::get<io::ConfigError>(r).message, Catch::Contains("is a directory"));
 }

@@ -166,3 +166,33 @@ TEST_CASE("unusable FITS files are refused with a reason", "[fits]") {
     CHECK_THAT(io::write_fits_image(temp_path("bad.fits"), 2, 2, px), Catch::Contains("5 pixels"));
   }
 }
+
+TEST_CASE("undefined integer pixels (BLANK) are refused, and a wrong size before any pixel is read",
+          "[fits][hardening]") {
+  // FITS 4.0 sec. 4.4.2.5: in an integer image, pixels equal to BLANK are
+  // undefined. A 16-bit dark with such holes used to be accepted.
+  const fs::path p = temp_path("blank.fits");
+  fs::remove(p);
+  int status = 0;
+  fitsfile* f = nullptr;
+  fits_create_file(&f, p.string().c_str(), &status);
+  long naxes[2] = {2, 2};
+  fits_create_img(f, SHORT_IMG, 2, naxes, &status);
+  long blank = -999;
+  fits_update_key(f, TLONG, "BLANK", &blank, "undefined pixels", &status);
+  short v[4] = {10, -999, 12, 13};
+  long first[2] = {1, 1};
+  fits_write_pix(f, TSHORT, first, 4, v, &status);
+  fits_close_file(f, &status);
+  REQUIRE(status == 0);
+  auto r = io::read_fits_image(p);
+  REQUIRE(std::holds_alternative<io::FitsError>(r));
+  CHECK_THAT(std::get<io::FitsError>(r).message, Catch::Contains("pixel (1, 0)"));
+  CHECK_THAT(std::get<io::FitsError>(r).message, Catch::Contains("undefined"));
+
+  const fs::path q = temp_path("two_by_two.fits");
+  REQUIRE(io::write_fits_image(q, 2, 2, std::vector<float>{1, 2, 3, 4}).empty());
+  auto wrong = io::read_fits_image(q, io::FitsShape{240, 240, 1});
+  REQUIRE(std::holds_alternative<io::FitsError>(wrong));
+  CHECK_THAT(std::get<io::FitsError>(wrong).message, Catch::Contains("it is 2 x 2 x 1, expected 240 x 240 x 1"));
+}
