@@ -99,7 +99,8 @@ MomentAccumulator::MomentAccumulator(int max_width)
     : col_sum_(static_cast<std::size_t>(max_width)),
       col_y_(static_cast<std::size_t>(max_width)),
       col_yy_(static_cast<std::size_t>(max_width)),
-      col_peak_(static_cast<std::size_t>(max_width)) {}
+      col_peak_(static_cast<std::size_t>(max_width)),
+      col_trough_(static_cast<std::size_t>(max_width)) {}
 
 // Rows are weighted by y - (h-1)/2 (window-centred) so that the second
 // moments do not come from the difference of two large numbers.
@@ -109,6 +110,7 @@ void MomentAccumulator::accumulate_columns(const float* data, int width, int hei
   float* __restrict cy = col_y_.data();
   float* __restrict cyy = col_yy_.data();
   float* __restrict cp = col_peak_.data();
+  float* __restrict ct = col_trough_.data();
   const float yc = 0.5f * static_cast<float>(height - 1);
   const float fy0 = -yc;
   for (int x = 0; x < width; ++x) {
@@ -116,6 +118,7 @@ void MomentAccumulator::accumulate_columns(const float* data, int width, int hei
     cy[x] = fy0 * data[x];
     cyy[x] = fy0 * fy0 * data[x];
     cp[x] = data[x];
+    ct[x] = data[x];
   }
   for (int y = 1; y < height; ++y) {
     const float* __restrict row = data + static_cast<std::size_t>(y) * stride;
@@ -127,6 +130,7 @@ void MomentAccumulator::accumulate_columns(const float* data, int width, int hei
       cy[x] += fy * v;
       cyy[x] += fyy * v;
       cp[x] = cp[x] < v ? v : cp[x];
+      ct[x] = ct[x] > v ? v : ct[x];
     }
   }
 }
@@ -135,7 +139,7 @@ WindowMoments MomentAccumulator::reduce(int x0, int width, int height) const {
   // Column totals are float (a window height of terms each); the short sums
   // over columns run in double.
   double s = 0.0, sx = 0.0, sy = 0.0, sxx = 0.0, syy = 0.0, sxy = 0.0;
-  float peak = col_peak_[x0];
+  float peak = col_peak_[x0], trough = col_trough_[x0];
   const double xc = 0.5 * (width - 1), yc = 0.5 * (height - 1);
   for (int x = 0; x < width; ++x) {
     const double fx = x - xc;
@@ -147,10 +151,12 @@ WindowMoments MomentAccumulator::reduce(int x0, int width, int height) const {
     syy += col_yy_[x0 + x];
     sxy += fx * cy;
     peak = std::max(peak, col_peak_[x0 + x]);
+    trough = std::min(trough, col_trough_[x0 + x]);
   }
   WindowMoments m;
   m.flux = s;
   m.peak = peak;
+  m.trough = trough;
   if (!(s > 0.0)) return m;
   const double mx = sx / s, my = sy / s;
   const double vx = sxx / s - mx * mx, vy = syy / s - my * my, cxy = sxy / s - mx * my;

@@ -38,6 +38,7 @@ namespace slopecast::core {
 struct WindowMoments {
   double flux = 0.0;    // sum of pixels, ADU
   double peak = 0.0;    // brightest pixel summed, ADU (in the pipeline: the raw maximum)
+  double trough = 0.0;  // darkest pixel, ADU (float path only; 0 on the folded path, whose pixels are >= 0)
   double cx = 0.0;      // centre of gravity, window-local px (0 when flux <= 0)
   double cy = 0.0;
   double var_x = 0.0;   // second central moments, px^2 (0 when flux <= 0)
@@ -97,7 +98,7 @@ class MomentAccumulator {
  private:
   void accumulate_columns(const float* data, int width, int height, int stride);
   WindowMoments reduce(int x0, int width, int height) const;
-  std::vector<float> col_sum_, col_y_, col_yy_, col_peak_;  // one entry per column
+  std::vector<float> col_sum_, col_y_, col_yy_, col_peak_, col_trough_;  // one entry per column
 };
 
 }  // namespace slopecast::core

@@ -25,6 +25,8 @@ enum SubapertureFlag : std::uint32_t {
   kFlagMethodFailed = 1u << 9,// the method placed the spot but does not vouch for it (see SpotEstimate::failed)
   kFlagNarrow = 1u << 10,     // FWHM (larger axis) below min_fwhm_px: a hot pixel or a cosmic ray, not a spot
   kFlagMasked = 1u << 11,     // excluded by the valid map (outside the pupil, vignetted): never valid
+  kFlagNegativePixel = 1u << 12,  // a pixel far below the background (> 10 noise rms, deeper than the box's
+                                  // whole flux): the box's light cancels, no centroid can be trusted
 };
 
 // Bits of FrameMeasurement::health; 0 means a controller may act on the

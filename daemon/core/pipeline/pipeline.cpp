@@ -13,6 +13,13 @@
 
 namespace slopecast::core {
 
+namespace {
+// The largest box sum or pixel the pipeline publishes, ADU: far beyond any
+// camera (2^32 x 1024^2 is 4.5e15), and 16 million such boxes still sum to a
+// finite float.
+constexpr double kMaxBoxAdu = 1e30;
+}  // namespace
+
 double full_scale_adu(PixelFormat format) {
   switch (format) {
     case PixelFormat::kU8: return 255.0;
@@ -356,8 +363,12 @@ void Pipeline::decide(FrameMeasurement& out) {
     const WindowMoments& m = contexts_[i].moments;
     const BorderStats& b = borders_[i];
     // A non-finite pixel (possible in f32 frames) must not leak NaN onto
-    // the wire: the flag says why, the numbers become 0.
-    const bool finite = std::isfinite(m.flux) && std::isfinite(m.peak) && b.finite;
+    // the wire: the flag says why, the numbers become 0. Sums beyond
+    // kMaxBoxAdu count as non-finite too: no camera delivers them, and their
+    // float image (or the frame's total) would be infinite.
+    const bool finite = std::isfinite(m.flux) && std::isfinite(m.peak) && b.finite &&
+                        std::abs(m.flux) <= kMaxBoxAdu && std::abs(m.peak) <= kMaxBoxAdu &&
+                        std::abs(b.level_adu) <= kMaxBoxAdu && std::abs(b.sigma_adu) <= kMaxBoxAdu;
     const bool placed = e.located && std::isfinite(e.x) && std::isfinite(e.y);
     const double snr =
         finite ? flux_snr(m.flux, std::max(b.sigma_adu, frame_sigma), n_pixels, b.n_kept, subtract) : 0.0;
@@ -387,6 +398,8 @@ void Pipeline::decide(FrameMeasurement& out) {
     if (finite && s.max_fwhm_px > 0.0 && std::max(fwhm_x, fwhm_y) > s.max_fwhm_px) flags |= kFlagWide;
     if (finite && placed && s.min_fwhm_px > 0.0 && std::max(fwhm_x, fwhm_y) < s.min_fwhm_px) flags |= kFlagNarrow;
     if (finite && s.max_ellipticity > 0.0 && shape.ellipticity > s.max_ellipticity) flags |= kFlagElongated;
+    if (finite && m.trough < -10.0 * std::max(b.sigma_adu, frame_sigma) && -m.trough > m.flux)
+      flags |= kFlagNegativePixel;
     if (check_saturation && raw_max_[i] >= saturation_adu_) flags |= kFlagSaturated;
     out.saturated_pixels[i] = check_saturation ? saturated_pixels_[i] : 0;
     out.flags[i] = flags;

@@ -126,6 +126,7 @@ TEST_CASE("a measurement round-trips with packed arrays and validity", "[wire]")
 TEST_CASE("the masked flag keeps its wire value", "[wire]") {
   CHECK(static_cast<int>(core::kFlagMasked) == v1::SUBAPERTURE_FLAG_MASKED);
   CHECK(static_cast<int>(core::kFlagNarrow) == v1::SUBAPERTURE_FLAG_NARROW);
+  CHECK(static_cast<int>(core::kFlagNegativePixel) == v1::SUBAPERTURE_FLAG_NEGATIVE_PIXEL);
 }
 
 TEST_CASE("pixel type codes map both ways", "[wire]") {
