@@ -69,6 +69,11 @@ Daemon::Daemon(io::DaemonConfig config)
   // Report every subscribe and unsubscribe, so we can count subscribers.
   measurements_.set(zmq::sockopt::xpub_verboser, 1);
   measurements_.set(zmq::sockopt::sndhwm, config_.measurement_queue_depth);
+  // What arrives on the measurement socket is subscriptions: measurements
+  // carry no topic, so any prefix but "" is pointless. An oversized one
+  // (8 MB took the daemon to 773 MB and kept it there) makes ZeroMQ drop
+  // that connection instead.
+  measurements_.set(zmq::sockopt::maxmsgsize, std::int64_t{kMaxSubscriptionBytes});
   for (const std::string* e : {&config_.endpoints.measurements_out, &config_.endpoints.control})
     if (io::reachable_off_host(*e))
       spdlog::warn("binding {} is reachable from other hosts, and slopecastd has no access control yet; "
@@ -82,7 +87,7 @@ Daemon::Daemon(io::DaemonConfig config)
   }
   // Socket options take effect for connections made after they are set:
   // cap control requests before binding.
-  control_.set(zmq::sockopt::maxmsgsize, std::int64_t{1} << 16);
+  control_.set(zmq::sockopt::maxmsgsize, kMaxControlRequestBytes);
   try {
     control_.bind(config_.endpoints.control);
   } catch (const zmq::error_t& e) {

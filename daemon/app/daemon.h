@@ -48,6 +48,11 @@
 namespace slopecast::app {
 
 inline constexpr const char* kVersion = "0.1.0";
+// Largest control request accepted, bytes; a larger one drops its connection.
+inline constexpr std::int64_t kMaxControlRequestBytes = 1 << 16;
+// Largest subscription message accepted on the measurement socket (1 byte
+// of kind + the topic prefix), bytes.
+inline constexpr std::int64_t kMaxSubscriptionBytes = 256;
 
 class Daemon {
  public:

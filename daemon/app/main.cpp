@@ -14,6 +14,7 @@
 #include <spdlog/spdlog.h>
 
 #include "daemon/app/daemon.h"
+#include "daemon/app/library_logs.h"
 #include "daemon/core/frame/pixel_format.h"
 #include "daemon/io/daemon_config.h"
 
@@ -145,6 +146,7 @@ int main(int argc, char** argv) {
   }, "Print the version and exit");
   CLI11_PARSE(cli, argc, argv);
   spdlog::set_level(spdlog::level::from_str(log_level));
+  slopecast::app::route_protobuf_logs();
 
   if (!check_path.empty()) {
     auto loaded = io::load_daemon_config(check_path);
