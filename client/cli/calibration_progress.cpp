@@ -1,5 +1,6 @@
 #include "client/cli/calibration_progress.h"
 
+#include <algorithm>
 #include <iostream>
 #include <thread>
 
@@ -9,6 +10,10 @@
 #include "client/cli/commands.h"
 
 namespace slopecast::cli {
+
+namespace {
+constexpr double kProgressTimeoutS = 30.0;
+}  // namespace
 
 void run_acquisition(const char* command, client::ControlClient& control, const v1::ControlRequest& request,
                      double timeout_s, bool no_wait, bool json) {
@@ -39,8 +44,14 @@ void run_acquisition(const char* command, client::ControlClient& control, const 
                                   : "the daemon did not confirm the cancel (it may have finished)");
       return;
     }
-    const auto reply = call_daemon(command, control, show, timeout_s);
-    if (!reply) return;
+    // The daemon answers between frames, and pauses while it makes a
+    // product (a registration takes a fraction of a second, longer on a
+    // loaded machine): wait generously for progress replies.
+    const auto reply = call_daemon(command, control, show, std::max(timeout_s, kProgressTimeoutS));
+    if (!reply) {
+      if (stop_requested()) continue;  // the signal cut the wait short: cancel at the top of the loop
+      return;
+    }
     const auto& a = reply->calibration().acquisition();
     if (a.state() == v1::ACQUISITION_STATE_RUNNING) {
       const auto now = std::chrono::steady_clock::now();

@@ -6,7 +6,7 @@
 using namespace slopecast::core;
 
 TEST_CASE("subaperture boxes and zero points follow the stated convention", "[geometry]") {
-  // design.md: box (ix, iy) starts at origin + ix*pitch; zero point is
+  // sensor_geometry.h: box (ix, iy) starts at origin + ix*pitch; zero point is
   // origin + (ix + 1/2) pitch - 1/2. Worked example: origin 3, pitch 15,
   // ix 2 -> box columns 33..47, centre 40.
   const LensletGrid g{4, 3, 15, 3, 5};

@@ -1,6 +1,8 @@
-// The per-frame path must not allocate (design.md, hot path rules). This
-// program replaces the global operator new with a counting one and runs the
-// pipeline and the measurement encoder over many frames.
+// The per-frame path must not allocate (the hot path rules, DEVELOPERS.md).
+// This program replaces every form of the global operator new (throwing and
+// nothrow, single and array, so that a sanitizer sees matching new/delete
+// pairs) with a counting one and runs the pipeline and the measurement
+// encoder over many frames.
 #include <catch2/catch.hpp>
 
 #include <atomic>
@@ -25,8 +27,18 @@ void* operator new(std::size_t n) {
   if (void* p = std::malloc(n ? n : 1)) return p;
   throw std::bad_alloc();
 }
+void* operator new(std::size_t n, const std::nothrow_t&) noexcept {
+  g_allocations.fetch_add(1, std::memory_order_relaxed);
+  return std::malloc(n ? n : 1);
+}
+void* operator new[](std::size_t n) { return operator new(n); }
+void* operator new[](std::size_t n, const std::nothrow_t& t) noexcept { return operator new(n, t); }
 void operator delete(void* p) noexcept { std::free(p); }
 void operator delete(void* p, std::size_t) noexcept { std::free(p); }
+void operator delete(void* p, const std::nothrow_t&) noexcept { std::free(p); }
+void operator delete[](void* p) noexcept { std::free(p); }
+void operator delete[](void* p, std::size_t) noexcept { std::free(p); }
+void operator delete[](void* p, const std::nothrow_t&) noexcept { std::free(p); }
 
 using namespace slopecast;
 
