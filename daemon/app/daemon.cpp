@@ -18,8 +18,11 @@ namespace {
 
 constexpr auto kTickPeriod = std::chrono::seconds(1);
 // Frames handled per poll wake-up before control and signals are looked at
-// again, so a flood of frames cannot starve a stop request.
+// again, so a flood of frames cannot starve a stop request: at most this
+// many, and none started after kMaxFramesTime has passed (a machine slower
+// than the frame rate would otherwise hold control back for 64 frame times).
 constexpr int kMaxFramesPerWake = 64;
+constexpr auto kMaxFramesTime = std::chrono::milliseconds(10);
 
 std::uint64_t wall_ns() {
   return static_cast<std::uint64_t>(std::chrono::duration_cast<std::chrono::nanoseconds>(
@@ -209,7 +212,9 @@ void Daemon::handle_monitor() {
 
 int Daemon::handle_frames() {
   int n = 0;
+  const auto until = std::chrono::steady_clock::now() + kMaxFramesTime;
   for (; n < kMaxFramesPerWake; ++n) {
+    if (n > 0 && std::chrono::steady_clock::now() > until) return n;
     if (!frames_.recv(header_msg_, zmq::recv_flags::dontwait)) return n;
     has_last_image_ = false;  // payload_msg_ is about to be overwritten
     if (!header_msg_.more()) {

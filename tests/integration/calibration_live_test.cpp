@@ -49,6 +49,7 @@ int run_cli(const testing::DaemonHarness& h, std::vector<std::string> args, cons
   const auto status = cli.wait(120s);
   INFO(testing::read_log(h.dir / log_name));
   REQUIRE(status.has_value());
+  if (*status != 0) UNSCOPED_INFO("slopecast " << args[0] << " said:\n" << testing::read_log(h.dir / log_name));
   return *status;
 }
 
