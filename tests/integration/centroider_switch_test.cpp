@@ -4,6 +4,7 @@
 // test's subscriber.
 #include <catch2/catch.hpp>
 
+#include <csignal>
 #include <map>
 
 #include "client/lib/measurement_subscriber.h"
@@ -47,9 +48,10 @@ TEST_CASE("the centroider switches live without losing a frame, and a bad settin
     CHECK(s.worker_threads() == 2u);  // every switch below rebuilds a two-lane pipeline
   }
 
-  const int frames = 1600;
+  // The camera runs until the test has seen 300 measurements after the last
+  // switch (however long a loaded machine takes to get there), then stops.
   testing::ChildProcess sim(SLOPECAST_PATH,
-                            {"sim", "--frames-out", h.frames_endpoint, "--frames", std::to_string(frames),
+                            {"sim", "--frames-out", h.frames_endpoint, "--frames", "0",
                              "--rate-hz", "1000", "--photons", "50000", "--seed", "9", "--block-when-full",
                              "--subapertures-x", "8", "--subapertures-y", "8", "--pitch-px", "15",
                              "--bias-adu", "100", "--read-noise-e", "3"},
@@ -61,9 +63,11 @@ TEST_CASE("the centroider switches live without losing a frame, and a bad settin
   int cli_status = -1;
   std::string cli_log;
   const auto deadline = std::chrono::steady_clock::now() + 90s;
-  while (got.size() < static_cast<std::size_t>(frames) && std::chrono::steady_clock::now() < deadline) {
+  int after_last_switch = 0;
+  while (after_last_switch < 300 && std::chrono::steady_clock::now() < deadline) {
     if (auto m = sub.receive(500ms)) got.push_back(std::move(*m));
     else continue;
+    after_last_switch += got.back().settings_generation() == 3;
     if (got.size() == 300) {
       // Switch to a weighted CoG following the spot, over the control socket.
       auto r = h.control().call(set_request({{"method", std::string("wcog")}, {"weight_sigma_px", 1.5},
@@ -99,8 +103,21 @@ TEST_CASE("the centroider switches live without losing a frame, and a bad settin
     }
   }
   INFO("daemon log:\n" << h.log() << "\nsim log:\n" << testing::read_log(h.dir / "sim.log"));
-  REQUIRE(sim.wait(30s) == 0);
-  REQUIRE(got.size() == static_cast<std::size_t>(frames));
+  REQUIRE(after_last_switch == 300);
+  sim.signal(SIGINT);
+  REQUIRE(sim.wait(30s) == 130);
+  // Every frame the camera sent is measured and reaches us: drain until the
+  // daemon's count and ours agree (they must, with lossless queues).
+  std::uint64_t processed = 0;
+  while (std::chrono::steady_clock::now() < deadline) {
+    processed = h.status().frames_processed();
+    while (got.size() < processed)
+      if (auto m = sub.receive(2s)) got.push_back(std::move(*m));
+      else break;
+    if (got.size() == processed && h.status().frames_processed() == processed) break;
+  }
+  const std::size_t frames = got.size();
+  REQUIRE(frames == processed);
   CHECK(sub.malformed() == 0);
 
   CHECK_THAT(refused, Catch::Contains("search_px 7 leaves a template of 1 px"));
@@ -126,11 +143,11 @@ TEST_CASE("the centroider switches live without losing a frame, and a bad settin
     ++count[g];
   }
   // The switch is between frames: the first 300 received were measured
-  // before the request, and the last 600 after the command-line switch
-  // (plus those already queued when it arrived).
+  // before the request, generation 2 carried on through the refusal, and the
+  // command-line switch took over for (at least) the last 300.
   CHECK(count[1] >= 300);
-  CHECK(count[2] >= 300);  // measurements continued with generation 2 through the refusal
-  CHECK(count[3] >= 600);
+  CHECK(count[2] >= 1);
+  CHECK(count[3] >= 300);
   const v1::StatusReply s = h.status();
   CHECK(s.frames_processed() == static_cast<std::uint64_t>(frames));
   CHECK(s.frames_missed() == 0);
