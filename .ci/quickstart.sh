@@ -29,9 +29,10 @@ packages=(
   libopencv-core-dev libopencv-imgproc-dev libopencv-imgcodecs-dev
   libcfitsio-dev libspdlog-dev libfmt-dev libcli11-dev libtoml11-dev
 )
-# The tests also read our FITS files with an independent implementation
-# (astropy, from Debian): test mode only.
-if [[ "$mode" == test ]]; then packages+=(python3-astropy); fi
+# Test mode only: the tests read our FITS files with an independent
+# implementation (astropy), and the fuzzers (.ci/fuzz.sh) need clang and
+# its libFuzzer runtime.
+if [[ "$mode" == test ]]; then packages+=(python3-astropy clang libclang-rt-14-dev); fi
 missing=()
 for p in "${packages[@]}"; do
   dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed" || missing+=("$p")

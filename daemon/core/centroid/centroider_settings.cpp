@@ -207,8 +207,9 @@ std::string describe(const CentroiderSettings& s) {
   std::string out;
   for (const auto& [key, value] : list_options(s)) {
     if (key == "method") continue;
+    const std::string_view name = key;  // (a structured binding cannot be captured before C++20 in clang 14)
     const auto it = std::find_if(kOptions.begin(), kOptions.end(),
-                                 [&](const CentroiderOption& o) { return o.key == key; });
+                                 [&](const CentroiderOption& o) { return o.key == name; });
     if (!reads(it->methods, method)) continue;
     if (key == "reference_file" && s.reference != ReferenceSource::kFile) continue;
     out += fmt::format("{}{} = {}", out.empty() ? "" : ", ", key, format_option(value));
