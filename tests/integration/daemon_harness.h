@@ -38,6 +38,7 @@ class DaemonHarness {
   [[nodiscard]] bool wait_for_subscribers(unsigned n);
   // Sends a signal to the daemon.
   void signal(int sig) { daemon_->signal(sig); }
+  pid_t daemon_pid() const { return daemon_->pid(); }
   // SIGTERM, then the exit status if it exits within timeout.
   std::optional<int> stop(std::chrono::milliseconds timeout);
 

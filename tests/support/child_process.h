@@ -26,6 +26,7 @@ class ChildProcess {
 
   // Sends a signal (e.g. SIGTERM).
   void signal(int sig);
+  pid_t pid() const { return pid_; }
   // Exit status once the process has exited within timeout: the exit code,
   // or 128 + signal number if it was killed by a signal; nullopt if still running.
   [[nodiscard]] std::optional<int> wait(std::chrono::milliseconds timeout);
