@@ -513,6 +513,18 @@ void Daemon::set_centroider(const v1::SetCentroiderRequest& req, v1::ControlRepl
     return reply.set_error("reference = \"captured\" needs an image captured from the live frames: send "
                            "capture_reference (slopecast centroider --capture-reference)");
   }
+  // A live request may name only a file inside the config's folder: a
+  // relative path without "..", so the control endpoint cannot be used to
+  // read (or probe for) files elsewhere.
+  if (file_named) {
+    const std::filesystem::path named(next.reference_file);
+    bool climbs = false;
+    for (const auto& part : named) climbs |= part == "..";
+    if (named.is_absolute() || climbs)
+      return reply.set_error(fmt::format("reference_file '{}': a live request may name only a relative path "
+                                         "inside the config's folder (no '..', not absolute)",
+                                         next.reference_file));
+  }
   if (next.reference == core::ReferenceSource::kFile && (file_named || now.reference != core::ReferenceSource::kFile))
     if (auto e = io::load_reference_image(next, config_.base_dir); !e.empty()) return reply.set_error(e);
   core::PipelineSettings settings = pipeline_.settings();

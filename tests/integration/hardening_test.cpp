@@ -111,3 +111,82 @@ TEST_CASE("frames whose source_id is not UTF-8 are rejected and logged once a se
   CHECK(lines >= 1);
   CHECK(lines <= 30);
 }
+
+TEST_CASE("live requests cannot reach files outside the daemon's folders, and a failed save leaves measuring alone",
+          "[integration][hardening]") {
+  testing::DaemonHarness h;
+  // calibration_dir is a file: nothing can be saved under it.
+  std::ofstream(h.dir / "not_a_dir") << "x";
+  REQUIRE(h.start(std::string(kConfig) + "[calibration]\ncalibration_dir = \"not_a_dir\"\n"));
+  auto call = [&](const v1::ControlRequest& req) {
+    auto r = h.control().call(req, 5s);
+    REQUIRE(std::holds_alternative<v1::ControlReply>(r));
+    return std::get<v1::ControlReply>(r);
+  };
+  for (const char* path : {"/etc/hostname", "../../etc/hostname", "sub/../../x.fits"}) {
+    v1::ControlRequest req;
+    auto* o = req.mutable_set_centroider()->add_options();
+    o->set_key("reference_file");
+    o->set_text(path);
+    auto* m = req.mutable_set_centroider()->add_options();
+    m->set_key("method");
+    m->set_text("correlation");
+    auto* r = req.mutable_set_centroider()->add_options();
+    r->set_key("reference");
+    r->set_text("file");
+    const auto reply = call(req);
+    INFO(path << ": " << reply.error());
+    CHECK_FALSE(reply.ok());
+    CHECK_THAT(reply.error(), Catch::Contains("only a relative path inside the config's folder"));
+  }
+  for (const char* name : {"../x", "/tmp/x", ".hidden", "a/b"}) {
+    v1::ControlRequest req;
+    req.mutable_calibration()->set_save(name);
+    const auto reply = call(req);
+    CHECK_FALSE(reply.ok());
+    CHECK_THAT(reply.error(), Catch::Contains("is not a set name"));
+  }
+  v1::ControlRequest save;
+  save.mutable_calibration()->set_save("good-name");
+  const auto reply = call(save);
+  CHECK_FALSE(reply.ok());
+  CHECK_THAT(reply.error(), Catch::Contains("calibration_dir"));
+  CHECK(h.status().centroider().settings_generation() == 1u);  // nothing changed
+  CHECK(h.stop(5s) == 0);
+}
+
+TEST_CASE("a flood of control requests while streaming at 1 kHz loses no frame", "[integration][hardening]") {
+  testing::DaemonHarness h;
+  REQUIRE(h.start("[camera]\nwidth_px = 240\nheight_px = 240\npixel_type = \"u16\"\n"
+                  "[lenslet_grid]\nsubapertures_x = 16\nsubapertures_y = 16\npitch_px = 15\n"
+                  "[daemon]\nframe_queue_depth = 16\n"));
+  client::MeasurementSubscriber sub(h.ctx, h.measurements_endpoint);
+  REQUIRE(h.wait_for_subscribers(1));
+  const int frames = 3000;
+  testing::ChildProcess sim(SLOPECAST_PATH,
+                            {"sim", "--frames-out", h.frames_endpoint, "--frames", std::to_string(frames),
+                             "--rate-hz", "1000", "--block-when-full", "--subapertures-x", "16",
+                             "--subapertures-y", "16", "--pitch-px", "15"},
+                            h.dir / "sim.log");
+  // Status and show requests back to back until the stream ends.
+  int requests = 0, received = 0;
+  v1::ControlRequest show;
+  show.mutable_calibration()->set_show(true);
+  const auto deadline = std::chrono::steady_clock::now() + 120s;
+  while (received < frames && std::chrono::steady_clock::now() < deadline) {
+    auto r = h.control().call(requests % 2 ? show : v1::ControlRequest{}, 5s);
+    REQUIRE(std::holds_alternative<v1::ControlReply>(r));
+    ++requests;
+    while (auto m = sub.receive(0ms)) ++received;
+  }
+  while (received < frames && std::chrono::steady_clock::now() < deadline)
+    if (sub.receive(1s)) ++received;
+  REQUIRE(sim.wait(30s) == 0);
+  const auto s = h.status();
+  WARN(requests << " control requests answered while " << frames << " frames streamed");
+  CHECK(received == frames);
+  CHECK(s.frames_processed() == static_cast<std::uint64_t>(frames));
+  CHECK(s.frames_missed() == 0u);
+  CHECK(requests >= 1);  // how many depends on the machine; the point is that none cost a frame
+  CHECK(h.stop(5s) == 0);
+}
