@@ -4,6 +4,7 @@
 #pragma once
 
 #include <cmath>
+#include <cstdint>
 #include <set>
 #include <string>
 
@@ -18,9 +19,41 @@ namespace slopecast::io {
 // (counted outside strings and comments). Empty when fine, else why not.
 inline constexpr std::size_t kMaxTomlBytes = 1 << 20;
 inline constexpr int kMaxTomlNesting = 32;
+//
+// Also checked: the text is UTF-8 without control characters other than
+// tab, line feed and carriage return (the TOML specification's own rule for
+// a document). toml11 3.7 reads past the end of its buffer on some invalid
+// UTF-8 in a literal-string key (found by fuzzing; tests/fuzz/layout_fuzz).
 inline std::string check_toml_shape(const std::string& text) {
   if (text.size() > kMaxTomlBytes)
     return fmt::format("the file is {} bytes; a config or manifest is at most {} bytes", text.size(), kMaxTomlBytes);
+  {
+    int line = 1;
+    for (std::size_t i = 0; i < text.size();) {
+      const auto c = static_cast<unsigned char>(text[i]);
+      if (c == '\n') ++line;
+      if (c < 0x80) {
+        if ((c < 0x20 && c != '\t' && c != '\n' && c != '\r') || c == 0x7f)
+          return fmt::format("line {}: control character 0x{:02x} (TOML allows only tab and line ends)", line, c);
+        ++i;
+        continue;
+      }
+      // Multi-byte UTF-8: a lead byte and 1-3 continuation bytes, shortest
+      // form, no surrogates, at most U+10FFFF.
+      const int n = c >= 0xf0 && c <= 0xf4 ? 3 : c >= 0xe0 ? 2 : c >= 0xc2 && c <= 0xdf ? 1 : -1;
+      bool ok = n > 0 && i + n < text.size();  // the continuation bytes are all there
+      std::uint32_t cp = n == 1 ? c & 0x1f : n == 2 ? c & 0x0f : c & 0x07;
+      for (int k = 1; ok && k <= n; ++k) {
+        const auto cc = static_cast<unsigned char>(text[i + k]);
+        ok = (cc & 0xc0) == 0x80;
+        cp = (cp << 6) | (cc & 0x3f);
+      }
+      ok = ok && !(n == 2 && cp < 0x800) && !(n == 3 && (cp < 0x10000 || cp > 0x10ffff)) &&
+           !(cp >= 0xd800 && cp <= 0xdfff);
+      if (!ok) return fmt::format("line {}: not valid UTF-8 (a TOML file must be)", line);
+      i += n + 1;
+    }
+  }
   int depth = 0, line = 1;
   for (std::size_t i = 0; i < text.size(); ++i) {
     const char c = text[i];

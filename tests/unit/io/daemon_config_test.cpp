@@ -288,3 +288,18 @@ TEST_CASE("a config path that is a directory is named as one", "[config][hardeni
   REQUIRE(std::holds_alternative<io::ConfigError>(r));
   CHECK_THAT(std::get<io::ConfigError>(r).message, Catch::Contains("is a directory"));
 }
+
+TEST_CASE("config text that is not UTF-8 or holds control characters is refused before the parser",
+          "[config][hardening]") {
+  // Found by fuzzing (layout_fuzz): these bytes made toml11 3.7 read past
+  // the end of its buffer (AddressSanitizer: heap-buffer-overflow in
+  // parse_literal_string).
+  const std::string crash = "'V\xbf|M\xd1\x99\x8b\x8c\xf3\xee-'V\xbf|\xb3\x0c\x11\xcd";
+  CHECK_THAT(error_of(crash), Catch::Contains("not valid UTF-8"));
+  CHECK_THAT(error_of(std::string(kGood) + "# a bell \x07\n"), Catch::Contains("control character 0x07"));
+  CHECK_THAT(error_of(std::string(kGood) + "# overlong \xc0\xaf\n"), Catch::Contains("not valid UTF-8"));
+  CHECK_THAT(error_of(std::string(kGood) + "# surrogate \xed\xa0\x80\n"), Catch::Contains("not valid UTF-8"));
+  CHECK_THAT(error_of(std::string(kGood) + "# cut short \xe2\x82"), Catch::Contains("not valid UTF-8"));
+  // Real UTF-8 and CRLF line ends are fine.
+  CHECK(error_of(std::string(kGood) + "# Tarn Ridge \xe2\x80\x94 5.5 \xc2\xb5m, \xf0\x9f\x94\xad\r\n").empty());
+}
