@@ -40,7 +40,7 @@ inline std::string check_toml_shape(const std::string& text) {
       }
       // Multi-byte UTF-8: a lead byte and 1-3 continuation bytes, shortest
       // form, no surrogates, at most U+10FFFF.
-      const int n = c >= 0xf0 && c <= 0xf4 ? 3 : c >= 0xe0 ? 2 : c >= 0xc2 && c <= 0xdf ? 1 : -1;
+      const int n = c >= 0xf0 && c <= 0xf4 ? 3 : c >= 0xe0 && c <= 0xef ? 2 : c >= 0xc2 && c <= 0xdf ? 1 : -1;
       bool ok = n > 0 && i + n < text.size();  // the continuation bytes are all there
       std::uint32_t cp = n == 1 ? c & 0x1f : n == 2 ? c & 0x0f : c & 0x07;
       for (int k = 1; ok && k <= n; ++k) {

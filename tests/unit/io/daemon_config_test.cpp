@@ -300,6 +300,7 @@ TEST_CASE("config text that is not UTF-8 or holds control characters is refused 
   CHECK_THAT(error_of(std::string(kGood) + "# overlong \xc0\xaf\n"), Catch::Contains("not valid UTF-8"));
   CHECK_THAT(error_of(std::string(kGood) + "# surrogate \xed\xa0\x80\n"), Catch::Contains("not valid UTF-8"));
   CHECK_THAT(error_of(std::string(kGood) + "# cut short \xe2\x82"), Catch::Contains("not valid UTF-8"));
+  CHECK_THAT(error_of(std::string(kGood) + "# no such lead byte \xf8\x88\x80\x80\n"), Catch::Contains("not valid UTF-8"));
   // Real UTF-8 and CRLF line ends are fine.
   CHECK(error_of(std::string(kGood) + "# Tarn Ridge \xe2\x80\x94 5.5 \xc2\xb5m, \xf0\x9f\x94\xad\r\n").empty());
 }
