@@ -22,6 +22,7 @@ namespace {
 constexpr const char* kCmd = "calibrate";
 
 struct CalibrateOptions {
+  KeyOptions keys;
   std::string config;
   std::string control = io::kDefaultControlEndpoint;
   std::string action;
@@ -62,7 +63,9 @@ void run_calibrate(CalibrateOptions o) {
   const auto endpoint = resolve_control(kCmd, o.config, o.control);
   if (!endpoint) return;
   zmq::context_t ctx(1);
-  client::ControlClient control(ctx, *endpoint);
+  std::optional<client::CurveClient> curve;
+  if (!load_keys(kCmd, o.keys, curve)) return;
+  client::ControlClient control(ctx, *endpoint, curve);
   v1::ControlRequest request;
   auto* cal = request.mutable_calibration();
   if (o.action == "dark" || o.action == "sky" || o.action == "reference" || o.action == "valid-map" ||
@@ -104,6 +107,7 @@ void add_calibrate_command(CLI::App& app) {
   auto* cmd = app.add_subcommand("calibrate", "Calibrate the running slopecastd: acquisitions and calibration sets");
   cmd->require_subcommand(1);
   auto common = [o](CLI::App* sub) {
+    add_key_options(sub, o->keys);
     auto* config = sub->add_option("--config", o->config, "Take the control endpoint from this slopecastd config file")
                        ->check(CLI::ExistingFile);
     sub->add_option("--control", o->control, "Daemon control endpoint")->capture_default_str()->excludes(config);

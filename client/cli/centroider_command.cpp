@@ -22,6 +22,7 @@ namespace {
 constexpr const char* kCmd = "centroider";
 
 struct CentroiderOptions {
+  KeyOptions keys;
   std::string config;
   std::string control = io::kDefaultControlEndpoint;
   std::string method;
@@ -59,7 +60,9 @@ void run_centroider(CentroiderOptions o) {
   }
   set->set_capture_reference(o.capture_reference);
   zmq::context_t ctx(1);
-  client::ControlClient control(ctx, *control_endpoint);
+  std::optional<client::CurveClient> curve;
+  if (!load_keys(kCmd, o.keys, curve)) return;
+  client::ControlClient control(ctx, *control_endpoint, curve);
   const auto reply = call_daemon(kCmd, control, request, o.timeout_s, " (the running settings are unchanged)");
   if (!reply) return;
   const v1::CentroiderReply& c = reply->centroider();
@@ -91,6 +94,7 @@ void add_centroider_command(CLI::App& app) {
   cmd->add_flag("--json", opts->json, "Print the reply as JSON (field names as in control.proto)");
   cmd->add_option("--timeout-s", opts->timeout_s, "Seconds to wait for the reply")
       ->capture_default_str()->check(CLI::PositiveNumber);
+  add_key_options(cmd, opts->keys);
   cmd->callback([opts] { run_centroider(*opts); });
 }
 

@@ -3,6 +3,7 @@
 #include <google/protobuf/util/json_util.h>
 
 #include "client/cli/commands.h"
+#include "daemon/io/curve_keys.h"
 #include "daemon/io/endpoint.h"
 
 namespace slopecast::cli {
@@ -72,6 +73,34 @@ std::optional<v1::ControlReply> call_daemon(const char* command, client::Control
     return std::nullopt;
   }
   return std::move(reply);
+}
+
+void add_key_options(CLI::App* cmd, KeyOptions& keys) {
+  auto* c = cmd->add_option("--client-key", keys.client_key,
+                            "This client's CURVE key pair file (`slopecast keys`), for a daemon with [security]")
+                ->check(CLI::ExistingFile);
+  auto* s = cmd->add_option("--server-key", keys.server_key, "The daemon's public key file, with --client-key")
+                ->check(CLI::ExistingFile);
+  c->needs(s);
+  s->needs(c);
+}
+
+bool load_keys(const char* command, const KeyOptions& keys, std::optional<client::CurveClient>& out) {
+  out.reset();
+  if (keys.client_key.empty()) return true;
+  auto mine = io::read_key_file(keys.client_key, true);
+  if (auto* e = std::get_if<std::string>(&mine)) {
+    fail(command, "--client-key: " + *e);
+    return false;
+  }
+  auto server = io::read_key_file(keys.server_key, false);
+  if (auto* e = std::get_if<std::string>(&server)) {
+    fail(command, "--server-key: " + *e);
+    return false;
+  }
+  const auto& m = std::get<io::CurveKeyPair>(mine);
+  out = client::CurveClient{std::get<io::CurveKeyPair>(server).public_z85, m.public_z85, m.secret_z85};
+  return true;
 }
 
 }  // namespace slopecast::cli

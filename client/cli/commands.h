@@ -24,6 +24,17 @@ void add_centroider_command(CLI::App& app);
 void add_roundtrip_command(CLI::App& app);
 void add_calibrate_command(CLI::App& app);
 void add_register_command(CLI::App& app);
+void add_keys_command(CLI::App& app);
+
+// --client-key / --server-key, for a daemon running with [security].
+struct KeyOptions {
+  std::string client_key;  // this client's key pair file
+  std::string server_key;  // the daemon's public key file
+};
+void add_key_options(CLI::App* cmd, KeyOptions& keys);
+// The CURVE keys to connect with (nullopt inside when none were given).
+// On a bad or missing file fails the command and returns false.
+bool load_keys(const char* command, const KeyOptions& keys, std::optional<client::CurveClient>& out);
 
 // The command line as typed (argv joined by spaces), for provenance.
 const std::string& invocation();

@@ -54,6 +54,7 @@ int main(int argc, char** argv) {
   add_roundtrip_command(app);
   add_calibrate_command(app);
   add_register_command(app);
+  add_keys_command(app);
   CLI11_PARSE(app, argc, argv);
   if (stop_requested() && exit_code() == 0) exit_code() = stopped_exit_code();
   return exit_code();

@@ -23,6 +23,7 @@ namespace {
 constexpr const char* kCmd = "register";
 
 struct RegisterOptions {
+  KeyOptions keys;
   std::string image;
   std::string dark;
   std::string out;
@@ -86,7 +87,9 @@ void run_register(RegisterOptions o) {
   const auto endpoint = resolve_control(kCmd, o.config, o.control);
   if (!endpoint) return;
   zmq::context_t ctx(1);
-  client::ControlClient control(ctx, *endpoint);
+  std::optional<client::CurveClient> curve;
+  if (!load_keys(kCmd, o.keys, curve)) return;
+  client::ControlClient control(ctx, *endpoint, curve);
   v1::ControlRequest request;
   auto* start = request.mutable_calibration()->mutable_start();
   start->set_kind(v1::ACQUISITION_KIND_REGISTRATION);
@@ -117,6 +120,7 @@ void add_register_command(CLI::App& app) {
   cmd->add_flag("--no-wait", o->no_wait, "--live: start and return")->needs(live);
   cmd->add_flag("--json", o->json, "--live: print the daemon's reply as JSON")->needs(live);
   cmd->add_option("--timeout-s", o->timeout_s, "Seconds to wait for each reply")->capture_default_str()->check(CLI::PositiveNumber);
+  add_key_options(cmd, o->keys);
   cmd->callback([o] {
     if (o->image.empty() && !o->live) return fail(kCmd, "give a FITS image or cube, or --live");
     o->command_line = invocation();

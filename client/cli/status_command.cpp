@@ -15,6 +15,7 @@ namespace {
 constexpr const char* kCmd = "status";
 
 struct StatusOptions {
+  KeyOptions keys;
   std::string config;
   std::string control = io::kDefaultControlEndpoint;
   double timeout_s = 2.0;
@@ -61,7 +62,9 @@ void run_status(StatusOptions o) {
   const auto control_endpoint = resolve_control(kCmd, o.config, o.control);
   if (!control_endpoint) return;
   zmq::context_t ctx(1);
-  client::ControlClient control(ctx, *control_endpoint);
+  std::optional<client::CurveClient> curve;
+  if (!load_keys(kCmd, o.keys, curve)) return;
+  client::ControlClient control(ctx, *control_endpoint, curve);
   const auto timeout = std::chrono::milliseconds(static_cast<long>(o.timeout_s * 1000));
   auto result = o.wait_s > 0 ? control.wait_ready(std::chrono::milliseconds(static_cast<long>(o.wait_s * 1000)))
                              : control.status(timeout);
@@ -96,6 +99,7 @@ void add_status_command(CLI::App& app) {
   cmd->add_option("--wait-s", opts->wait_s,
                   "Keep asking for up to this many seconds until the daemon answers (readiness check)")
       ->check(CLI::NonNegativeNumber);
+  add_key_options(cmd, opts->keys);
   cmd->callback([opts] { run_status(*opts); });
 }
 

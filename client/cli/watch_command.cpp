@@ -17,6 +17,7 @@ namespace {
 constexpr const char* kCmd = "watch";
 
 struct WatchOptions {
+  KeyOptions keys;
   std::string config;
   std::string measurements = io::kDefaultMeasurementsEndpoint;
   double duration_s = 0.0;   // 0: until interrupted or count reached
@@ -44,7 +45,9 @@ void run_watch(WatchOptions o) {
   }
   if (!endpoint_ok(kCmd, "--measurements", o.measurements)) return;
   zmq::context_t ctx(1);
-  client::MeasurementSubscriber sub(ctx, o.measurements);
+  std::optional<client::CurveClient> curve;
+  if (!load_keys(kCmd, o.keys, curve)) return;
+  client::MeasurementSubscriber sub(ctx, o.measurements, curve);
   client::MeasurementTally total, interval;
   using clock = std::chrono::steady_clock;
   const auto start = clock::now();
@@ -101,6 +104,7 @@ void add_watch_command(CLI::App& app) {
   cmd->add_option("--idle-timeout-s", opts->idle_timeout_s,
                   "Fail if no measurement arrives for this many seconds (0: wait forever)")
       ->check(CLI::NonNegativeNumber);
+  add_key_options(cmd, opts->keys);
   cmd->callback([opts] { run_watch(*opts); });
 }
 

@@ -6,8 +6,14 @@
 
 namespace slopecast::client {
 
-ControlClient::ControlClient(zmq::context_t& ctx, std::string endpoint)
-    : ctx_(ctx), endpoint_(std::move(endpoint)) {
+void apply_curve(zmq::socket_t& socket, const CurveClient& keys) {
+  socket.set(zmq::sockopt::curve_serverkey, keys.server_public);
+  socket.set(zmq::sockopt::curve_publickey, keys.public_key);
+  socket.set(zmq::sockopt::curve_secretkey, keys.secret_key);
+}
+
+ControlClient::ControlClient(zmq::context_t& ctx, std::string endpoint, std::optional<CurveClient> curve)
+    : ctx_(ctx), endpoint_(std::move(endpoint)), curve_(std::move(curve)) {
   reset();
 }
 
@@ -15,6 +21,7 @@ void ControlClient::reset() {
   // A REQ socket that sent and got no answer cannot send again; replace it.
   socket_ = std::make_unique<zmq::socket_t>(ctx_, zmq::socket_type::req);
   socket_->set(zmq::sockopt::linger, 0);
+  if (curve_) apply_curve(*socket_, *curve_);
   socket_->connect(endpoint_);
 }
 

@@ -3,6 +3,7 @@
 
 #include <chrono>
 #include <memory>
+#include <optional>
 #include <string>
 #include <variant>
 
@@ -15,9 +16,20 @@ namespace slopecast::client {
 // The error call() returns when a signal interrupted the wait.
 inline constexpr const char* kInterrupted = "interrupted by a signal";
 
+// A client's side of CURVE (a daemon with [security] on): the daemon's
+// public key and this client's key pair, Z85 (daemon/io/curve_keys.h).
+struct CurveClient {
+  std::string server_public;
+  std::string public_key;
+  std::string secret_key;
+};
+
+// Sets a socket up as a CURVE client before it connects.
+void apply_curve(zmq::socket_t& socket, const CurveClient& keys);
+
 class ControlClient {
  public:
-  ControlClient(zmq::context_t& ctx, std::string endpoint);
+  ControlClient(zmq::context_t& ctx, std::string endpoint, std::optional<CurveClient> curve = std::nullopt);
 
   // One request, one reply. On timeout or a reply that does not parse, returns
   // the reason as a string (and resets the socket so the next call can go on).
@@ -36,6 +48,7 @@ class ControlClient {
   void reset();
   zmq::context_t& ctx_;
   std::string endpoint_;
+  std::optional<CurveClient> curve_;
   std::unique_ptr<zmq::socket_t> socket_;
 };
 

@@ -4,9 +4,11 @@
 
 namespace slopecast::client {
 
-MeasurementSubscriber::MeasurementSubscriber(zmq::context_t& ctx, const std::string& endpoint)
+MeasurementSubscriber::MeasurementSubscriber(zmq::context_t& ctx, const std::string& endpoint,
+                                             const std::optional<CurveClient>& curve)
     : socket_(ctx, zmq::socket_type::sub) {
   socket_.set(zmq::sockopt::linger, 0);
+  if (curve) apply_curve(socket_, *curve);
   socket_.set(zmq::sockopt::rcvhwm, 10000);
   socket_.set(zmq::sockopt::subscribe, "");
   socket_.connect(endpoint);

@@ -7,6 +7,8 @@
 
 #include <zmq.hpp>
 
+#include "client/lib/control_client.h"
+
 #include "slopecast/v1/measurement.pb.h"
 
 namespace slopecast::client {
@@ -14,7 +16,8 @@ namespace slopecast::client {
 class MeasurementSubscriber {
  public:
   // Connects to the daemon's measurements_out endpoint and subscribes to all.
-  MeasurementSubscriber(zmq::context_t& ctx, const std::string& endpoint);
+  MeasurementSubscriber(zmq::context_t& ctx, const std::string& endpoint,
+                        const std::optional<CurveClient>& curve = std::nullopt);
 
   // Next measurement, or nullopt when none arrives within timeout or a
   // signal interrupts the wait. A message

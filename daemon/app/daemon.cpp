@@ -45,6 +45,19 @@ float micros(std::chrono::steady_clock::duration d) {
   return std::chrono::duration<float, std::micro>(d).count();
 }
 
+// Everything but status and calibration show changes the daemon.
+bool changes_something(const v1::ControlRequest& r) {
+  if (r.has_status()) return false;
+  if (r.has_calibration() && r.calibration().has_show()) return false;
+  return true;
+}
+
+// The ZAP handler put the client's role in the connection's User-Id.
+bool may_change(zmq::message_t& request) {
+  const char* user = zmq_msg_gets(request.handle(), "User-Id");
+  return user && std::string_view(user) == "change";
+}
+
 std::span<const std::byte> bytes_of(const zmq::message_t& m) {
   return {static_cast<const std::byte*>(m.data()), m.size()};
 }
@@ -67,7 +80,8 @@ Daemon::Daemon(io::DaemonConfig config)
       frames_(ctx_, zmq::socket_type::sub),
       measurements_(ctx_, zmq::socket_type::xpub),
       control_(ctx_, zmq::socket_type::rep),
-      frames_monitor_(ctx_, zmq::socket_type::pair) {
+      frames_monitor_(ctx_, zmq::socket_type::pair),
+      zap_(ctx_, zmq::socket_type::rep) {
   for (zmq::socket_t* s : {&frames_, &measurements_, &control_}) s->set(zmq::sockopt::linger, 0);
   // Report every subscribe and unsubscribe, so we can count subscribers.
   measurements_.set(zmq::sockopt::xpub_verboser, 1);
@@ -78,10 +92,21 @@ Daemon::Daemon(io::DaemonConfig config)
   // that connection instead.
   measurements_.set(zmq::sockopt::maxmsgsize, std::int64_t{kMaxSubscriptionBytes});
   for (const std::string* e : {&config_.endpoints.measurements_out, &config_.endpoints.control})
-    if (io::reachable_off_host(*e))
-      spdlog::warn("binding {} is reachable from other hosts, and slopecastd has no access control yet; "
-                   "prefer 127.0.0.1 unless the network is trusted",
+    if (io::reachable_off_host(*e) && !config_.curve)
+      spdlog::warn("binding {} is reachable from other hosts without access control; prefer 127.0.0.1 "
+                   "unless the network is trusted, or configure [security]",
                    *e);
+  if (config_.curve) {
+    // The ZAP handler must be bound before any connection can arrive.
+    zap_.set(zmq::sockopt::linger, 0);
+    zap_.bind("inproc://zeromq.zap.01");
+    for (zmq::socket_t* s : {&measurements_, &control_}) {
+      s->set(zmq::sockopt::curve_server, 1);
+      s->set(zmq::sockopt::curve_secretkey, config_.server_keys.secret_z85);
+      s->set(zmq::sockopt::zap_domain, "slopecast");
+    }
+    spdlog::info("access control on: CURVE with {} client key(s) allowed", config_.clients.size());
+  }
   try {
     measurements_.bind(config_.endpoints.measurements_out);
   } catch (const zmq::error_t& e) {
@@ -132,7 +157,9 @@ int Daemon::run(int signal_fd) {
       {measurements_.handle(), 0, ZMQ_POLLIN, 0},
       {frames_monitor_.handle(), 0, ZMQ_POLLIN, 0},
       {nullptr, signal_fd, ZMQ_POLLIN, 0},
+      {zap_.handle(), 0, ZMQ_POLLIN, 0},
   };
+  const int n_items = config_.curve ? 6 : 5;
   auto next_tick = std::chrono::steady_clock::now() + kTickPeriod;
   auto last_tick = std::chrono::steady_clock::now();
   for (;;) {
@@ -144,7 +171,7 @@ int Daemon::run(int signal_fd) {
     }
     const auto wait = std::chrono::duration_cast<std::chrono::milliseconds>(next_tick - now);
     try {
-      zmq::poll(items, 5, std::max(wait, std::chrono::milliseconds(1)));
+      zmq::poll(items, n_items, std::max(wait, std::chrono::milliseconds(1)));
     } catch (const zmq::error_t& e) {
       if (e.num() == EINTR) continue;
       throw;
@@ -158,6 +185,7 @@ int Daemon::run(int signal_fd) {
     if (items[0].revents & ZMQ_POLLIN) handle_frames();
     if (items[1].revents & ZMQ_POLLIN) handle_control();
     if (items[2].revents & ZMQ_POLLIN) handle_subscriptions();
+    if (n_items > 5 && (items[5].revents & ZMQ_POLLIN)) handle_zap();
   }
   const LatencySummary lat = stats_.latency();
   spdlog::info("stopped after {:.1f} s: {} frames received, {} processed, {} rejected, {} missed, {} "
@@ -422,6 +450,39 @@ void Daemon::tick(double period_s) {
   }
 }
 
+void Daemon::handle_zap() {
+  std::vector<zmq::message_t> parts;
+  zmq::message_t part;
+  do {
+    if (!zap_.recv(part, zmq::recv_flags::dontwait)) break;
+    parts.push_back(std::move(part));
+  } while (parts.back().more());
+  // version, request id, domain, address, routing id, mechanism, credentials...
+  if (parts.size() < 6) return;
+  const std::string version = parts[0].to_string(), request_id = parts[1].to_string();
+  const std::string mechanism = parts[5].to_string();
+  const io::ClientKey* client = nullptr;
+  if (mechanism == "CURVE" && parts.size() >= 7 && parts[6].size() == 32) {
+    char z85[41] = {};
+    zmq_z85_encode(z85, static_cast<const std::uint8_t*>(parts[6].data()), 32);
+    for (const auto& c : config_.clients)
+      if (c.public_z85 == z85) client = &c;
+  }
+  if (!client) {
+    ++connections_refused_;
+    spdlog::warn("refused a {} connection from {}: its key is not in the clients file ({} refused so far)",
+                 mechanism, parts[3].to_string(), connections_refused_);
+  }
+  const std::string status = client ? "200" : "400", text = client ? "OK" : "key not allowed";
+  const std::string user = client ? (client->may_change ? "change" : "read") : "";
+  zap_.send(zmq::buffer(version), zmq::send_flags::sndmore);
+  zap_.send(zmq::buffer(request_id), zmq::send_flags::sndmore);
+  zap_.send(zmq::buffer(status), zmq::send_flags::sndmore);
+  zap_.send(zmq::buffer(text), zmq::send_flags::sndmore);
+  zap_.send(zmq::buffer(user), zmq::send_flags::sndmore);
+  zap_.send(zmq::str_buffer(""), zmq::send_flags::none);
+}
+
 void Daemon::handle_subscriptions() {
   zmq::message_t m;
   while (measurements_.recv(m, zmq::recv_flags::dontwait)) {
@@ -458,6 +519,8 @@ void Daemon::fill_status(v1::StatusReply& s) {
   s.set_frame_connection_drops(stats_.frame_connection_drops);
   s.set_frames_skipped(stats_.frames_skipped);
   s.set_newest_frame_only(config_.newest_frame_only);
+  s.set_access_control(config_.curve);
+  s.set_connections_refused(connections_refused_);
   const auto now = std::chrono::steady_clock::now();
   v1::StreamState state = v1::STREAM_STATE_WAITING;
   if (stats_.has_last_seq) {
@@ -559,6 +622,9 @@ void Daemon::handle_control() {
     reply.set_error("control requests are single-part messages holding one slopecast.v1.ControlRequest");
   } else if (!req.ParseFromArray(req_msg.data(), static_cast<int>(req_msg.size()))) {
     reply.set_error("request does not parse as a slopecast.v1.ControlRequest");
+  } else if (config_.curve && changes_something(req) && !may_change(req_msg)) {
+    reply.set_error("this client's key may only read (status, calibration show): changing settings or the "
+                    "calibration needs a key with role \"change\" in the daemon's clients file");
   } else {
     switch (req.command_case()) {
       case v1::ControlRequest::kStatus:

@@ -50,9 +50,11 @@ namespace slopecast::app {
 inline constexpr const char* kVersion = "0.1.0";
 // Largest control request accepted, bytes; a larger one drops its connection.
 inline constexpr std::int64_t kMaxControlRequestBytes = 1 << 16;
-// Largest subscription message accepted on the measurement socket (1 byte
-// of kind + the topic prefix), bytes.
-inline constexpr std::int64_t kMaxSubscriptionBytes = 256;
+// Largest message accepted on the measurement socket, bytes: subscriptions
+// (1 byte of kind + the topic prefix) and, with [security], the CURVE
+// handshake's INITIATE command (about 300 bytes), which the cap also
+// governs.
+inline constexpr std::int64_t kMaxSubscriptionBytes = 4096;
 
 class Daemon {
  public:
@@ -84,6 +86,9 @@ class Daemon {
   void apply_settings(core::PipelineSettings next, const std::string& why);
   void describe_calibration(v1::CalibrationReply& out) const;
   void handle_subscriptions();
+  // Answers one ZAP request (ZeroMQ RFC 27): a CURVE client key in the
+  // clients file is accepted with its role as user id, any other refused.
+  void handle_zap();
   void tick(double period_s);
   void fill_status(v1::StatusReply& s);
 
@@ -124,6 +129,8 @@ class Daemon {
   zmq::socket_t measurements_;
   zmq::socket_t control_;
   zmq::socket_t frames_monitor_;  // PAIR receiving frames_' connection events
+  zmq::socket_t zap_;             // REP on inproc://zeromq.zap.01 when [security] is on
+  std::uint64_t connections_refused_ = 0;
   zmq::message_t header_msg_, payload_msg_, extra_msg_;
 };
 

@@ -95,6 +95,14 @@ relative to the config file.
   lenslet_pitch_um        = 57.0
   plate_scale_arcsec_per_px = 0.25
 
+  [security]                           optional: CURVE encryption and keys on the
+                                       measurement and control endpoints
+  server_key_file = "daemon.key"       the daemon's key pair (`slopecast keys daemon`)
+  clients_file    = "clients.toml"     [[client]] name, public (Z85), role = "change"
+                                       (may change settings and calibration) or
+                                       "read" (status and calibration show only);
+                                       any other key is refused and counted
+
   [daemon]
   frame_queue_depth     = 4            frames queued before newer ones drop (default 4)
   newest_frame_only     = false        true: when frames queue up, measure only the

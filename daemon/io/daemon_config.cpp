@@ -18,7 +18,7 @@ namespace slopecast::io {
 namespace {
 
 const std::set<std::string> kTables = {"endpoints", "camera", "lenslet_grid", "calibration", "centroider",
-                                       "optics", "daemon"};
+                                       "optics", "security", "daemon"};
 
 std::filesystem::path resolve(const std::filesystem::path& base_dir, const std::string& name) {
   std::filesystem::path path(name);
@@ -176,6 +176,27 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
     auto k = core::units_per_px(c.slope_unit, c.optics);
     if (auto* e = std::get_if<std::string>(&k)) return fail("[optics] " + *e);
     c.units_per_px = std::get<double>(k);
+  }
+
+  TableReader sec(table("security"), "security");
+  std::string server_key, clients_file;
+  sec.path("server_key_file", server_key);
+  sec.path("clients_file", clients_file);
+  sec.reject_unknown();
+  if (!sec.error.empty()) return fail(sec.error);
+  if (server_key.empty() != clients_file.empty())
+    return fail("[security] needs both server_key_file (the daemon's key pair) and clients_file (who may "
+                "connect), or neither");
+  if (!server_key.empty()) {
+    c.curve = true;
+    if (what.load_images) {
+      auto keys = read_key_file(resolve(base_dir, server_key), true);
+      if (auto* e = std::get_if<std::string>(&keys)) return fail("[security] server_key_file: " + *e);
+      c.server_keys = std::get<CurveKeyPair>(keys);
+      auto clients = read_clients_file(resolve(base_dir, clients_file));
+      if (auto* e = std::get_if<std::string>(&clients)) return fail("[security] clients_file: " + *e);
+      c.clients = std::get<std::vector<ClientKey>>(clients);
+    }
   }
 
   TableReader d(table("daemon"), "daemon");

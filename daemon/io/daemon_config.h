@@ -17,6 +17,7 @@
 #include "daemon/core/calibration/slope_units.h"
 #include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/calibration_set.h"
+#include "daemon/io/curve_keys.h"
 #include "daemon/io/endpoint.h"
 
 namespace slopecast::io {
@@ -77,6 +78,12 @@ struct DaemonConfig {
   // layout) and each product's provenance, kept for the next save.
   std::optional<core::LatticeFit> lattice;
   std::map<std::string, Provenance> calibration_made;
+  // CURVE security on the daemon's bound endpoints ([security]): enabled
+  // when a server key is configured; then only the listed clients connect,
+  // and only those with role "change" may change anything.
+  bool curve = false;
+  CurveKeyPair server_keys;
+  std::vector<ClientKey> clients;
   // Published slope unit and the optics that convert to it ([optics]).
   core::SlopeUnit slope_unit = core::SlopeUnit::kPx;
   core::SlopeOptics optics;

@@ -23,7 +23,7 @@ bool DaemonHarness::start(const std::string& body) {
   daemon_ = std::make_unique<ChildProcess>(
       SLOPECASTD_PATH, std::vector<std::string>{"--config", (dir / "slopecastd.toml").string()},
       dir / "slopecastd.log");
-  control_ = std::make_unique<client::ControlClient>(ctx, control_endpoint);
+  control_ = std::make_unique<client::ControlClient>(ctx, control_endpoint, curve);
   auto r = control_->wait_ready(std::chrono::seconds(10));
   return std::holds_alternative<v1::ControlReply>(r) && std::get<v1::ControlReply>(r).ok();
 }

@@ -8,6 +8,7 @@
 
 #include <chrono>
 #include <memory>
+#include <optional>
 #include <string>
 
 #include <zmq.hpp>
@@ -25,6 +26,9 @@ class DaemonHarness {
   TempDir dir;
   zmq::context_t ctx{1};
   std::string frames_endpoint, measurements_endpoint, control_endpoint;
+  // Set before start() when the daemon runs with [security]: the harness's
+  // own control client then uses these keys.
+  std::optional<client::CurveClient> curve;
 
   // Writes slopecastd.toml: the three endpoints plus body (the [camera],
   // [lenslet_grid], ... tables), then starts the daemon and waits (up to

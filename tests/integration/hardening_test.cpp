@@ -57,7 +57,7 @@ TEST_CASE("an oversized subscription is dropped and not counted; a plain subscri
   REQUIRE(h.start(kConfig));
   zmq::socket_t greedy(h.ctx, zmq::socket_type::sub);
   greedy.set(zmq::sockopt::linger, 0);
-  greedy.set(zmq::sockopt::subscribe, std::string(4096, 'x'));  // 8 MB of these took RSS to 773 MB
+  greedy.set(zmq::sockopt::subscribe, std::string(65536, 'x'));  // 8 MB of these took RSS to 773 MB
   greedy.connect(h.measurements_endpoint);
   client::MeasurementSubscriber plain(h.ctx, h.measurements_endpoint);
   REQUIRE(h.wait_for_subscribers(1));
