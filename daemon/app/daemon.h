@@ -6,7 +6,8 @@
 // XPUB socket (subscribe/unsubscribe notices, for the subscriber count), a
 // monitor of the frame socket's connection events, and a signalfd for
 // SIGINT/SIGTERM (stop) and SIGHUP (logged and ignored: the daemon does not
-// reload its config; restart it to apply a change). Frames are handled in arrival order, each to
+// reload its config; restart it to apply a change) — and a sixth with
+// [security]: the ZAP socket that admits CURVE clients by key. Frames are handled in arrival order, each to
 // completion (check, measure, publish) before the next is read, so
 // measurements leave in frame order. Housekeeping (rate, rate-limited reject
 // logs) runs in tick() once per kTickPeriod, between frames.
