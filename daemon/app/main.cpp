@@ -115,9 +115,9 @@ relative to the config file.
                                        missed frames
   worker_threads        = 1            threads measuring each frame, rows split between
                                        them (default 1; try 2 for 80 x 80 and up)
-  max_frame_bytes       = 67108864     largest frame part accepted; a larger one
+  max_frame_bytes       = 180224       largest frame part accepted; a larger one
                                        drops the connection, which is counted and
-                                       re-made (default max(4 x frame + 1 MiB, 64 MiB))
+                                       re-made (default 2 x frame + 64 KiB)
 
 Signals: SIGINT and SIGTERM stop the daemon (exit 0); SIGHUP is logged and
 ignored (the config is read only at start).

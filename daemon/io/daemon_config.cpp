@@ -227,7 +227,11 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   c.calibration_dir = resolve(base_dir, cal_dir);
   const std::int64_t frame_bytes = static_cast<std::int64_t>(p.camera.width_px) * p.camera.height_px *
                                    static_cast<std::int64_t>(core::bytes_per_pixel(p.camera.format));
-  const std::int64_t default_cap = std::max<std::int64_t>(4 * frame_bytes + (1 << 20), std::int64_t{64} << 20);
+  // Twice the frame (rows padded up to double their width still fit) plus
+  // 64 KiB: ZeroMQ checks the cap per message part but buffers a whole
+  // multi-part message before the daemon can count its parts, so the cap
+  // is what bounds each part of a hostile many-part message.
+  const std::int64_t default_cap = 2 * frame_bytes + (std::int64_t{1} << 16);
   c.max_frame_bytes = max_frame > 0.0 ? static_cast<std::int64_t>(max_frame) : default_cap;
   if (c.max_frame_bytes < frame_bytes)
     return fail(fmt::format("[daemon] max_frame_bytes {} is smaller than one {} x {} {} frame ({} bytes)",

@@ -50,7 +50,7 @@ struct DaemonConfig {
   std::uint64_t max_seq_jump = 100000;
   // Largest frame message part ZeroMQ accepts, bytes. A larger one makes
   // ZeroMQ drop the connection; the daemon counts that and reconnects.
-  // 0 in the file means the default: max(4 x the configured frame + 1 MiB, 64 MiB).
+  // 0 in the file means the default: 2 x the configured frame + 64 KiB.
   std::int64_t max_frame_bytes = 0;
   // Threads that measure a frame (the loop thread and worker_threads - 1
   // helpers, each taking a band of subaperture rows). 1 for small sensors;

@@ -5,6 +5,7 @@
 #include <catch2/catch.hpp>
 
 #include <fstream>
+#include <thread>
 
 #include "client/lib/frame_publisher.h"
 #include "client/lib/measurement_subscriber.h"
@@ -231,5 +232,31 @@ TEST_CASE("a subscriber that stops reading costs only its own measurements; the 
   while (stuck.recv(m, zmq::recv_flags::dontwait)) ++stuck_got;
   WARN("the stuck subscriber holds " << stuck_got << " of " << frames << " measurements");
   CHECK(stuck_got < static_cast<std::size_t>(frames));
+  CHECK(h.stop(5s) == 0);
+}
+
+TEST_CASE("a many-part frame message of large parts is dropped at its first part, not buffered whole",
+          "[integration][hardening]") {
+  // Found by an adversarial run: with the cap at 64 MiB per part, a 600-part
+  // message of 1.5 MB parts was buffered whole (RSS 900 MB) before being
+  // rejected. The default cap is now 2 x frame + 64 KiB (72 KiB here), so
+  // the first 200 kB part drops the connection.
+  testing::DaemonHarness h;
+  REQUIRE(h.start(kConfig));
+  const long rss_before = testing::resident_kb(h.daemon_pid());
+  client::FramePublisher pub(h.ctx, h.frames_endpoint);
+  REQUIRE(pub.wait_for_subscriber(10s));
+  CHECK(h.status().max_frame_bytes() == 2 * 32 * 32 * 2 + 65536);
+  std::vector<std::string> parts(100, std::string(200000, 'x'));
+  REQUIRE(pub.publish_parts(parts));
+  const auto deadline = std::chrono::steady_clock::now() + 20s;
+  while (h.status().frame_connection_drops() < 1 && std::chrono::steady_clock::now() < deadline)
+    std::this_thread::sleep_for(20ms);
+  const auto s = h.status();
+  CHECK(s.frame_connection_drops() >= 1u);
+  CHECK(s.frames_received() == 0u);  // never handed to the daemon
+  const long rss_after = testing::resident_kb(h.daemon_pid());
+  INFO("daemon RSS " << rss_before << " kB before, " << rss_after << " kB after");
+  CHECK(rss_after - rss_before < 10 * 1024);  // 20 MB were sent
   CHECK(h.stop(5s) == 0);
 }

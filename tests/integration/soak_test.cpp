@@ -19,18 +19,6 @@
 using namespace slopecast;
 using namespace std::chrono_literals;
 
-namespace {
-
-// VmRSS of a process, kB (0 if unreadable).
-long rss_kb(pid_t pid) {
-  std::ifstream in("/proc/" + std::to_string(pid) + "/status");
-  for (std::string line; std::getline(in, line);)
-    if (line.rfind("VmRSS:", 0) == 0) return std::atol(line.c_str() + 6);
-  return 0;
-}
-
-}  // namespace
-
 TEST_CASE("a soak at 1 kHz keeps exact accounting and flat memory", "[integration][soak]") {
   const char* env = std::getenv("SLOPECAST_SOAK_S");
   const long seconds = env ? std::max(1L, std::atol(env)) : 20;
@@ -56,8 +44,8 @@ TEST_CASE("a soak at 1 kHz keeps exact accounting and flat memory", "[integratio
     in_order &= m->frame_seq() == next_seq;
     next_seq = m->frame_seq() + 1;
     ++received;
-    if (received == 2000) rss_warm = rss_kb(h.daemon_pid());
-    if (received > 2000 && received % 1000 == 0) rss_peak = std::max(rss_peak, rss_kb(h.daemon_pid()));
+    if (received == 2000) rss_warm = testing::resident_kb(h.daemon_pid());
+    if (received > 2000 && received % 1000 == 0) rss_peak = std::max(rss_peak, testing::resident_kb(h.daemon_pid()));
   }
   INFO("daemon log:\n" << h.log());
   REQUIRE(sim.wait(30s) == 0);

@@ -63,4 +63,11 @@ std::string read_log(const std::filesystem::path& log) {
   return {std::istreambuf_iterator<char>(in), {}};
 }
 
+long resident_kb(pid_t pid) {
+  std::ifstream in("/proc/" + std::to_string(pid) + "/status");
+  for (std::string line; std::getline(in, line);)
+    if (line.rfind("VmRSS:", 0) == 0) return std::atol(line.c_str() + 6);
+  return 0;
+}
+
 }  // namespace slopecast::testing

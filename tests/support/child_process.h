@@ -37,6 +37,9 @@ class ChildProcess {
   std::optional<int> status_;
 };
 
+// Resident memory of a running process (VmRSS), kB; 0 if unreadable.
+long resident_kb(pid_t pid);
+
 // Contents of a log file, for INFO() on failure.
 std::string read_log(const std::filesystem::path& log);
 
