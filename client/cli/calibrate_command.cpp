@@ -60,12 +60,10 @@ void print_summary(const v1::CalibrationReply& c) {
 }
 
 void run_calibrate(CalibrateOptions o) {
-  const auto endpoint = resolve_control(kCmd, o.config, o.control);
-  if (!endpoint) return;
   zmq::context_t ctx(1);
-  std::optional<client::CurveClient> curve;
-  if (!load_keys(kCmd, o.keys, curve)) return;
-  client::ControlClient control(ctx, *endpoint, curve);
+  const auto connection = connect_control(kCmd, ctx, o.config, o.control, o.keys);
+  if (!connection) return;
+  client::ControlClient& control = *connection;
   v1::ControlRequest request;
   auto* cal = request.mutable_calibration();
   if (o.action == "dark" || o.action == "sky" || o.action == "reference" || o.action == "valid-map" ||

@@ -48,8 +48,9 @@ std::optional<std::pair<std::string, core::OptionValue>> parse_assignment(const 
 }
 
 void run_centroider(CentroiderOptions o) {
-  const auto control_endpoint = resolve_control(kCmd, o.config, o.control);
-  if (!control_endpoint) return;
+  zmq::context_t ctx(1);
+  const auto connection = connect_control(kCmd, ctx, o.config, o.control, o.keys);
+  if (!connection) return;
   v1::ControlRequest request;
   auto* set = request.mutable_set_centroider();
   if (!o.method.empty()) io::to_wire("method", core::OptionValue(o.method), *set->add_options());
@@ -59,11 +60,7 @@ void run_centroider(CentroiderOptions o) {
     io::to_wire(kv->first, kv->second, *set->add_options());
   }
   set->set_capture_reference(o.capture_reference);
-  zmq::context_t ctx(1);
-  std::optional<client::CurveClient> curve;
-  if (!load_keys(kCmd, o.keys, curve)) return;
-  client::ControlClient control(ctx, *control_endpoint, curve);
-  const auto reply = call_daemon(kCmd, control, request, o.timeout_s, " (the running settings are unchanged)");
+  const auto reply = call_daemon(kCmd, *connection, request, o.timeout_s, " (the running settings are unchanged)");
   if (!reply) return;
   const v1::CentroiderReply& c = reply->centroider();
   if (o.json) return print_json(kCmd, c);

@@ -85,6 +85,16 @@ void add_key_options(CLI::App* cmd, KeyOptions& keys) {
   s->needs(c);
 }
 
+std::unique_ptr<client::ControlClient> connect_control(const char* command, zmq::context_t& ctx,
+                                                       const std::string& config_path, const std::string& control,
+                                                       const KeyOptions& keys) {
+  const auto endpoint = resolve_control(command, config_path, control);
+  if (!endpoint) return nullptr;
+  std::optional<client::CurveClient> curve;
+  if (!load_keys(command, keys, curve)) return nullptr;
+  return std::make_unique<client::ControlClient>(ctx, *endpoint, curve);
+}
+
 bool load_keys(const char* command, const KeyOptions& keys, std::optional<client::CurveClient>& out) {
   out.reset();
   if (keys.client_key.empty()) return true;

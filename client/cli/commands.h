@@ -3,6 +3,7 @@
 // command is a thin layer over client/lib and client/sim.
 #pragma once
 
+#include <memory>
 #include <optional>
 #include <string>
 
@@ -32,6 +33,13 @@ struct KeyOptions {
   std::string server_key;  // the daemon's public key file
 };
 void add_key_options(CLI::App* cmd, KeyOptions& keys);
+// resolve_control + load_keys + a ControlClient on the result: the control
+// connection every command that talks to the daemon opens. nullptr when the
+// command has failed (the reason is printed).
+std::unique_ptr<client::ControlClient> connect_control(const char* command, zmq::context_t& ctx,
+                                                       const std::string& config_path, const std::string& control,
+                                                       const KeyOptions& keys);
+
 // The CURVE keys to connect with (nullopt inside when none were given).
 // On a bad or missing file fails the command and returns false.
 bool load_keys(const char* command, const KeyOptions& keys, std::optional<client::CurveClient>& out);

@@ -84,12 +84,10 @@ void run_offline(const RegisterOptions& o) {
 
 void run_register(RegisterOptions o) {
   if (!o.live) return run_offline(o);
-  const auto endpoint = resolve_control(kCmd, o.config, o.control);
-  if (!endpoint) return;
   zmq::context_t ctx(1);
-  std::optional<client::CurveClient> curve;
-  if (!load_keys(kCmd, o.keys, curve)) return;
-  client::ControlClient control(ctx, *endpoint, curve);
+  const auto connection = connect_control(kCmd, ctx, o.config, o.control, o.keys);
+  if (!connection) return;
+  client::ControlClient& control = *connection;
   v1::ControlRequest request;
   auto* start = request.mutable_calibration()->mutable_start();
   start->set_kind(v1::ACQUISITION_KIND_REGISTRATION);

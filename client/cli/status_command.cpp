@@ -59,12 +59,10 @@ void print_status(const v1::StatusReply& s) {
 }
 
 void run_status(StatusOptions o) {
-  const auto control_endpoint = resolve_control(kCmd, o.config, o.control);
-  if (!control_endpoint) return;
   zmq::context_t ctx(1);
-  std::optional<client::CurveClient> curve;
-  if (!load_keys(kCmd, o.keys, curve)) return;
-  client::ControlClient control(ctx, *control_endpoint, curve);
+  const auto connection = connect_control(kCmd, ctx, o.config, o.control, o.keys);
+  if (!connection) return;
+  client::ControlClient& control = *connection;
   const auto timeout = std::chrono::milliseconds(static_cast<long>(o.timeout_s * 1000));
   auto result = o.wait_s > 0 ? control.wait_ready(std::chrono::milliseconds(static_cast<long>(o.wait_s * 1000)))
                              : control.status(timeout);

@@ -36,6 +36,13 @@ std::optional<v1::ControlReply> raw_request(testing::DaemonHarness& h, const std
   return r;
 }
 
+// `slopecast sim` for the 240 x 240 camera of 16 x 16 boxes of 15 px below:
+// `frames` frames at 1 kHz, waiting for room rather than dropping.
+std::vector<std::string> sim_16x16(const testing::DaemonHarness& h, int frames) {
+  return {"sim", "--frames-out", h.frames_endpoint, "--frames", std::to_string(frames), "--rate-hz", "1000",
+          "--block-when-full", "--subapertures-x", "16", "--subapertures-y", "16", "--pitch-px", "15"};
+}
+
 }  // namespace
 
 TEST_CASE("a control request over the 64 KiB cap is dropped unread; the daemon answers the next client",
@@ -164,11 +171,7 @@ TEST_CASE("a flood of control requests while streaming at 1 kHz loses no frame",
   client::MeasurementSubscriber sub(h.ctx, h.measurements_endpoint);
   REQUIRE(h.wait_for_subscribers(1));
   const int frames = 3000;
-  testing::ChildProcess sim(SLOPECAST_PATH,
-                            {"sim", "--frames-out", h.frames_endpoint, "--frames", std::to_string(frames),
-                             "--rate-hz", "1000", "--block-when-full", "--subapertures-x", "16",
-                             "--subapertures-y", "16", "--pitch-px", "15"},
-                            h.dir / "sim.log");
+  testing::ChildProcess sim(SLOPECAST_PATH, sim_16x16(h, frames), h.dir / "sim.log");
   // Status and show requests back to back until the stream ends.
   int requests = 0, received = 0;
   v1::ControlRequest show;
@@ -208,11 +211,7 @@ TEST_CASE("a subscriber that stops reading costs only its own measurements; the 
   client::MeasurementSubscriber live(h.ctx, h.measurements_endpoint);
   REQUIRE(h.wait_for_subscribers(2));
   const int frames = 2000;
-  testing::ChildProcess sim(SLOPECAST_PATH,
-                            {"sim", "--frames-out", h.frames_endpoint, "--frames", std::to_string(frames),
-                             "--rate-hz", "1000", "--block-when-full", "--subapertures-x", "16",
-                             "--subapertures-y", "16", "--pitch-px", "15"},
-                            h.dir / "sim.log");
+  testing::ChildProcess sim(SLOPECAST_PATH, sim_16x16(h, frames), h.dir / "sim.log");
   int received = 0;
   const auto deadline = std::chrono::steady_clock::now() + 120s;
   while (received < frames && std::chrono::steady_clock::now() < deadline)
