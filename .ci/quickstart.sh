@@ -27,7 +27,7 @@ packages=(
   libzmq3-dev cppzmq-dev libprotobuf-dev protobuf-compiler
   libeigen3-dev catch2 libbenchmark-dev
   libopencv-core-dev libopencv-imgproc-dev libopencv-imgcodecs-dev
-  libcfitsio-dev libspdlog-dev libfmt-dev libcli11-dev libtoml11-dev
+  libcfitsio-dev libspdlog-dev libfmt-dev libcli11-dev libtoml11-dev zlib1g-dev
 )
 # Test mode only: the tests read our FITS files with an independent
 # implementation (astropy), and the fuzzers (.ci/fuzz.sh) need clang and

@@ -26,6 +26,9 @@ void add_roundtrip_command(CLI::App& app);
 void add_calibrate_command(CLI::App& app);
 void add_register_command(CLI::App& app);
 void add_keys_command(CLI::App& app);
+void add_record_command(CLI::App& app);
+void add_replay_command(CLI::App& app);
+void add_export_command(CLI::App& app);
 
 // --client-key / --server-key, for a daemon running with [security].
 struct KeyOptions {

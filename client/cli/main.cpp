@@ -55,6 +55,9 @@ int main(int argc, char** argv) {
   add_calibrate_command(app);
   add_register_command(app);
   add_keys_command(app);
+  add_record_command(app);
+  add_replay_command(app);
+  add_export_command(app);
   CLI11_PARSE(app, argc, argv);
   if (stop_requested() && exit_code() == 0) exit_code() = stopped_exit_code();
   return exit_code();

@@ -33,7 +33,11 @@ bool FramePublisher::wait_for_subscriber(std::chrono::milliseconds timeout) {
 
 bool FramePublisher::publish(const v1::FrameHeader& header, std::span<const std::byte> pixels) {
   header.SerializeToString(&header_buffer_);
-  if (!socket_.send(zmq::buffer(header_buffer_), zmq::send_flags::sndmore | zmq::send_flags::dontwait))
+  return publish_encoded(header_buffer_, pixels);
+}
+
+bool FramePublisher::publish_encoded(std::string_view header, std::span<const std::byte> pixels) {
+  if (!socket_.send(zmq::const_buffer(header.data(), header.size()), zmq::send_flags::sndmore | zmq::send_flags::dontwait))
     return false;
   return socket_.send(zmq::const_buffer(pixels.data(), pixels.size()), zmq::send_flags::dontwait)
       .has_value();
@@ -41,9 +45,15 @@ bool FramePublisher::publish(const v1::FrameHeader& header, std::span<const std:
 
 bool FramePublisher::publish_waiting(const v1::FrameHeader& header, std::span<const std::byte> pixels,
                                      const std::function<bool()>& keep_waiting) {
+  header.SerializeToString(&header_buffer_);
+  return publish_encoded_waiting(header_buffer_, pixels, keep_waiting);
+}
+
+bool FramePublisher::publish_encoded_waiting(std::string_view header, std::span<const std::byte> pixels,
+                                             const std::function<bool()>& keep_waiting) {
   zmq::pollitem_t item{socket_.handle(), 0, ZMQ_POLLOUT, 0};
   for (;;) {
-    if (publish(header, pixels)) return true;
+    if (publish_encoded(header, pixels)) return true;
     if (!keep_waiting()) return false;
     // Room appears as the subscriber reads; a signal ends the wait early.
     (void)interruptible_poll(&item, 1, std::chrono::milliseconds(100));

@@ -12,6 +12,7 @@
 #include <functional>
 #include <span>
 #include <string>
+#include <string_view>
 
 #include <zmq.hpp>
 
@@ -40,6 +41,12 @@ class FramePublisher {
   // Returns false only if keep_waiting() turns false while waiting.
   bool publish_waiting(const v1::FrameHeader& header, std::span<const std::byte> pixels,
                        const std::function<bool()>& keep_waiting);
+
+  // The same with the header already serialised (a replay sends the bytes
+  // it recorded, unchanged).
+  bool publish_encoded(std::string_view header, std::span<const std::byte> pixels);
+  bool publish_encoded_waiting(std::string_view header, std::span<const std::byte> pixels,
+                               const std::function<bool()>& keep_waiting);
 
   // True once wait_for_subscriber() (or a later poll) has seen a subscription.
   bool has_subscriber() const { return have_subscriber_; }

@@ -16,12 +16,15 @@
 
 #include <cstdint>
 #include <filesystem>
+#include <memory>
 #include <optional>
 #include <span>
 #include <string>
 #include <utility>
 #include <variant>
 #include <vector>
+
+#include "daemon/core/frame/pixel_format.h"
 
 namespace slopecast::io {
 
@@ -108,5 +111,46 @@ std::string write_fits_table(const std::filesystem::path& path, const std::strin
 // Reads every column of the binary-table extension named extname; numeric
 // columns only, non-finite values refused.
 std::variant<FitsTable, FitsError> read_fits_table(const std::filesystem::path& path, const std::string& extname);
+
+// Camera frames as a cube in their own pixel type (no conversion through
+// float): u8 as BITPIX 8, u16 as BITPIX 16 with BZERO 32768, u32 as BITPIX 32
+// with BZERO 2147483648, f32 as BITPIX -32. pixels are little-endian, plane
+// after plane. When columns is not empty, a binary-table extension named
+// extname follows the cube (one row per plane, typically seq and times).
+std::string write_fits_frames(const std::filesystem::path& path, int width, int height, int planes,
+                              core::PixelFormat format, std::span<const std::byte> pixels,
+                              const FitsHeader& header = {}, const std::string& extname = {},
+                              std::span<const FitsColumn> columns = {});
+
+// Reads a cube plane by plane as camera frames (for replay): BITPIX 8 -> u8;
+// 16 with BZERO 32768 -> u16; 32 with BZERO 2147483648 -> u32; signed 16 and
+// 32 -> u16 and u32 (a negative pixel is refused when its plane is read);
+// -32 and -64 -> f32. BLANK pixels are refused.
+class FitsFrameReader {
+ public:
+  static std::variant<std::unique_ptr<FitsFrameReader>, FitsError> open(const std::filesystem::path& path);
+  ~FitsFrameReader();
+  FitsFrameReader(const FitsFrameReader&) = delete;
+  FitsFrameReader& operator=(const FitsFrameReader&) = delete;
+
+  int width() const { return width_; }
+  int height() const { return height_; }
+  long planes() const { return planes_; }
+  int bitpix() const { return bitpix_; }
+  core::PixelFormat format() const { return format_; }
+  // Plane z (0-based) into out (width x height pixels of format(),
+  // little-endian). Empty on success, otherwise the reason.
+  std::string read_plane(long z, std::span<std::byte> out);
+
+ private:
+  FitsFrameReader() = default;
+  std::filesystem::path path_;
+  void* file_ = nullptr;  // fitsfile*
+  int width_ = 0, height_ = 0, bitpix_ = 0;
+  long planes_ = 0;
+  bool signed_ = false;
+  core::PixelFormat format_ = core::PixelFormat::kU16;
+  std::vector<double> wide_;
+};
 
 }  // namespace slopecast::io
