@@ -223,6 +223,8 @@ void run_record(RecordOptions o) {
   if (frames) items.push_back({frames->handle(), 0, ZMQ_POLLIN, 0});
   if (measurements) items.push_back({measurements->handle(), 0, ZMQ_POLLIN, 0});
   const char* stop_reason = "stopped by a signal";
+  std::uint64_t last_frame_seq = 0;
+  std::optional<clock::time_point> grace_until;
   auto receive_from = [&](zmq::socket_t& socket, client::RecordKind kind) {
     for (int burst = 0; burst < 256; ++burst) {
       client::RecordedMessage m;
@@ -254,10 +256,12 @@ void run_record(RecordOptions o) {
       }
       (frame ? frame_seq : measurement_seq).add(seq);
       if (frame && o.max_frames && frames_queued >= o.max_frames) continue;
+      if (!frame && o.max_frames && frames_queued >= o.max_frames && seq > last_frame_seq) continue;
       if (!queue.push(std::move(m))) {
         ++(frame ? overflow_frames : overflow_measurements);
       } else if (frame) {
         ++frames_queued;
+        last_frame_seq = seq;
       }
     }
   };
@@ -268,8 +272,17 @@ void run_record(RecordOptions o) {
       break;
     }
     if (o.max_frames && frames_queued >= o.max_frames) {
-      stop_reason = "frame limit reached";
-      break;
+      // The frames are in; with measurements recorded too, wait (up to 2 s)
+      // for the measurement of the last frame so that the file holds both.
+      if (!measurements || (measurement_seq.seen && measurement_seq.last >= last_frame_seq)) {
+        stop_reason = "frame limit reached";
+        break;
+      }
+      if (!grace_until) grace_until = clock::now() + std::chrono::seconds(2);
+      if (clock::now() >= *grace_until) {
+        stop_reason = "frame limit reached (the last frames' measurements did not all arrive within 2 s)";
+        break;
+      }
     }
     if (o.duration_s > 0 && std::chrono::duration<double>(clock::now() - start).count() >= o.duration_s) {
       stop_reason = "duration reached";

@@ -21,6 +21,7 @@
 #include "client/lib/measurement_tally.h"
 #include "client/sim/frame_bank.h"
 #include "client/sim/lattice_field.h"
+#include "client/cli/scenario_file.h"
 #include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/fits_image.h"
 #include "daemon/io/wire_codec.h"
@@ -33,6 +34,7 @@ constexpr const char* kCmd = "sim";
 
 struct SimOptions {
   std::string config;
+  std::string scenario;
   std::string frames_out = io::kDefaultFramesEndpoint;
   int subapertures_x = 16, subapertures_y = 16, pitch_px = 15;
   int origin_x_px = 0, origin_y_px = 0;
@@ -54,6 +56,7 @@ struct SimOptions {
   std::string write_dark;
   int dark_frames = 100;
   double wait_subscriber_s = 10.0;
+  unsigned subscribers = 1;
   bool block_when_full = false;
   std::string source_id = "slopecast-sim";
   // What the camera sees: "spots" (a regular grid of spots at random
@@ -114,9 +117,27 @@ void run_sim(SimOptions o) {
   if (o.scene == "spots")
     if (auto e = sim::validate(field); !e.empty()) return fail(kCmd, e);
   if (auto e = sim::validate(detector); !e.empty()) return fail(kCmd, e);
-  if (o.scene != "spots" && o.scene != "lattice" && o.scene != "dark" && o.scene != "uniform")
+  std::optional<ScenarioFile> scenario;
+  if (!o.scenario.empty()) {
+    auto read = read_scenario(o.scenario);
+    if (auto* e = std::get_if<std::string>(&read)) return fail(kCmd, *e);
+    scenario = std::get<ScenarioFile>(std::move(read));
+    scenario->scene.rate_hz = o.rate_hz;
+    scenario->scene.path_s = (o.frames > 0 ? std::min<double>(o.frames, o.distinct_frames) : o.distinct_frames) / o.rate_hz;
+    if (auto e = sim::validate(scenario->scene, field.grid); !e.empty()) return fail(kCmd, o.scenario + ": " + e);
+    const double bits_full = scenario->bit_depth ? std::ldexp(1.0, scenario->bit_depth) - 1 : type_full_scale;
+    if (bits_full > type_full_scale)
+      return fail(kCmd, fmt::format("{}: a {}-bit detector does not fit {} pixels", o.scenario, scenario->bit_depth,
+                                    o.pixel_type));
+    detector = scenario->detector;
+    detector.full_scale_adu = bits_full;
+    if (auto e = sim::validate(detector); !e.empty()) return fail(kCmd, o.scenario + ": " + e);
+    o.scene = "turbulence";
+  }
+  if (o.scene != "spots" && o.scene != "lattice" && o.scene != "dark" && o.scene != "uniform" &&
+      o.scene != "turbulence")
     return fail(kCmd, fmt::format("--scene '{}' is not one of spots, lattice, dark, uniform", o.scene));
-  if (o.scene != "spots" && !o.truth_csv.empty())
+  if (o.scene != "spots" && o.scene != "turbulence" && !o.truth_csv.empty())
     return fail(kCmd, "--truth-csv belongs to --scene spots (the other scenes are static; their truth is the "
                       "lattice settings themselves)");
   o.lattice.width_px = camera.width_px;
@@ -156,7 +177,8 @@ void run_sim(SimOptions o) {
   if (!o.truth_csv.empty()) {
     truth.open(o.truth_csv);
     if (!truth) return fail(kCmd, "cannot write truth CSV '" + o.truth_csv + "'");
-    truth << "frame_seq,subaperture,true_dx_px,true_dy_px\n";
+    truth << (o.scene == "turbulence" ? "frame_seq,subaperture,true_dx_px,true_dy_px,illuminated\n"
+                                      : "frame_seq,subaperture,true_dx_px,true_dy_px\n");
   }
   zmq::context_t ctx(1);
   std::unique_ptr<client::FramePublisher> pub;
@@ -171,6 +193,12 @@ void run_sim(SimOptions o) {
   if (o.scene == "spots")
     scene = fmt::format("{} x {} spots, sigma {} px, {} photons, background {} e-/px", o.subapertures_x,
                         o.subapertures_y, o.spot_sigma_px, o.photons, o.background_e);
+  else if (o.scene == "turbulence")
+    scene = fmt::format("turbulence from {}: r0 {} m at {} nm, L0 {} m, {} layer(s), D {} m, {} photons per "
+                        "subaperture",
+                        o.scenario, scenario->scene.r0_m, scenario->scene.r0_wavelength_nm,
+                        scenario->scene.outer_scale_m, scenario->scene.layers.size(), scenario->scene.pupil_diameter_m,
+                        scenario->scene.photons_per_subaperture);
   else if (o.scene == "lattice")
     scene = fmt::format("lattice of {} x {} lenslets, pitch {} px, rotation {} deg, pupil {} px ({} obstructed), "
                         "tilt ({}, {}) px",
@@ -183,8 +211,12 @@ void run_sim(SimOptions o) {
             << std::flush;
   sim::FrameBank bank;
   const std::size_t pixels = static_cast<std::size_t>(camera.width_px) * camera.height_px;
-  if (o.scene == "spots")
+  if (o.scene == "spots") {
     bank = sim::make_frame_bank(field, detector, camera, o.background_e, distinct, o.seed, keep_going);
+  } else if (o.scene == "turbulence") {
+    sim::TurbulenceSim simulator(scenario->scene, field.grid, o.seed);
+    bank = sim::make_turbulence_bank(simulator, detector, camera, distinct, o.seed ^ 0x5eed, keep_going);
+  }
   else if (o.scene == "lattice")
     bank = sim::make_static_bank(sim::render_lattice_field(o.lattice).image_e, detector, camera, distinct, o.seed,
                                  keep_going);
@@ -197,12 +229,14 @@ void run_sim(SimOptions o) {
   }
   if (o.wait_subscriber_s > 0) {
     std::cout << "waiting for a subscriber on " << o.frames_out << "...\n" << std::flush;
-    if (!pub->wait_for_subscriber(std::chrono::milliseconds(static_cast<long>(o.wait_subscriber_s * 1000)))) {
+    if (!pub->wait_for_subscribers(o.subscribers,
+                                   std::chrono::milliseconds(static_cast<long>(o.wait_subscriber_s * 1000)))) {
       if (stop_requested()) {
         std::cout << "stopped while waiting for a subscriber; sent 0 frames\n";
         return;
       }
-      return fail(kCmd, fmt::format("no subscriber on {} within {} s", o.frames_out, o.wait_subscriber_s));
+      return fail(kCmd, fmt::format("fewer than {} subscriber(s) on {} within {} s", o.subscribers, o.frames_out,
+                                    o.wait_subscriber_s));
     }
   }
   std::cout << fmt::format("publishing on {} at {} Hz{}\n", o.frames_out, o.rate_hz,
@@ -236,8 +270,12 @@ void run_sim(SimOptions o) {
     ++sent;
     if (truth.is_open() && !bank.truth.empty()) {  // only frames that left: what a test can expect to see measured
       const auto& t = bank.truth[k];
-      for (std::size_t i = 0; i < t.dx_px.size(); ++i)
-        truth << fmt::format("{},{},{:.6f},{:.6f}\n", seq, i, t.dx_px[i], t.dy_px[i]);
+      for (std::size_t i = 0; i < t.dx_px.size(); ++i) {
+        if (bank.illuminated.empty())
+          truth << fmt::format("{},{},{:.6f},{:.6f}\n", seq, i, t.dx_px[i], t.dy_px[i]);
+        else
+          truth << fmt::format("{},{},{:.6f},{:.6f},{:.4f}\n", seq, i, t.dx_px[i], t.dy_px[i], bank.illuminated[k][i]);
+      }
     }
   }
   const double elapsed = std::chrono::duration<double>(clock::now() - start).count();
@@ -295,10 +333,18 @@ void add_sim_command(CLI::App& app) {
   cmd->add_option("--wait-subscriber-s", o->wait_subscriber_s,
                   "Wait up to this long for a subscriber before the first frame (0: do not wait)")
       ->capture_default_str()->check(CLI::NonNegativeNumber);
+  cmd->add_option("--subscribers", o->subscribers,
+                  "Wait for this many subscribers (the daemon, a recorder, ...) before the first frame")
+      ->capture_default_str()->check(CLI::Range(1, 64));
   cmd->add_flag("--block-when-full", o->block_when_full,
                 "When a subscriber's queue is full, wait for room instead of dropping the frame (lossless: "
                 "the rate then follows the slowest subscriber)");
   cmd->add_option("--source-id", o->source_id, "Text put in every frame header's source_id")->capture_default_str();
+  auto* scenario = cmd->add_option("--scenario", o->scenario,
+                  "Physical simulation from this TOML scenario (turbulence layers, pupil, optics, detector; see "
+                  "the README): spots are Fourier-optics images of the turbulent wavefront, truth is each "
+                  "subaperture's mean phase gradient. Frame k is at time k / rate")
+      ->check(CLI::ExistingFile);
   cmd->add_option("--scene", o->scene,
                   "What the camera sees: spots (a regular grid, random offsets, with truth), lattice (a static "
                   "turned lattice behind an obstructed pupil, for registration), dark (no light), uniform (even "
@@ -321,6 +367,10 @@ void add_sim_command(CLI::App& app) {
   cmd->add_option("--dead", o->dead, "lattice: lenslet i,j gives no light (repeat for several)");
   cmd->add_option("--uniform-e-per-px", o->uniform_e, "uniform: light per pixel, expected photo-electrons")
       ->capture_default_str()->check(CLI::NonNegativeNumber);
+  // A scenario sets the light and the detector itself.
+  for (const char* name : {"--spot-sigma-px", "--photons", "--background-e-per-px", "--max-offset-px", "--read-noise-e",
+                           "--bias-adu", "--gain-e-per-adu", "--full-scale-adu", "--scene"})
+    cmd->get_option(name)->excludes(scenario);
   cmd->callback([o] { run_sim(*o); });
 }
 

@@ -12,22 +12,29 @@ FramePublisher::FramePublisher(zmq::context_t& ctx, const std::string& endpoint,
   // send() reports EAGAIN, so publish() can return false and callers count
   // the drop.
   socket_.set(zmq::sockopt::xpub_nodrop, 1);
+  // Pass every subscription up, not only the first per topic, so that
+  // wait_for_subscribers() can count subscribers (a recorder beside the
+  // daemon, say).
+  socket_.set(zmq::sockopt::xpub_verbose, 1);
   socket_.bind(endpoint);
 }
 
-bool FramePublisher::wait_for_subscriber(std::chrono::milliseconds timeout) {
-  if (have_subscriber_) return true;
+bool FramePublisher::wait_for_subscriber(std::chrono::milliseconds timeout) { return wait_for_subscribers(1, timeout); }
+
+bool FramePublisher::wait_for_subscribers(unsigned n, std::chrono::milliseconds timeout) {
+  if (subscriptions_ >= n) return have_subscriber_ = true;
   zmq::pollitem_t item{socket_.handle(), 0, ZMQ_POLLIN, 0};
   const auto deadline = std::chrono::steady_clock::now() + timeout;
-  while (!have_subscriber_) {
+  while (subscriptions_ < n) {
     const auto left = std::chrono::duration_cast<std::chrono::milliseconds>(
         deadline - std::chrono::steady_clock::now());
     if (left.count() <= 0) return false;
     if (interruptible_poll(&item, 1, left) == PollResult::kInterrupted) return false;
     zmq::message_t m;
     while (socket_.recv(m, zmq::recv_flags::dontwait))
-      if (m.size() >= 1 && static_cast<const unsigned char*>(m.data())[0] == 1) have_subscriber_ = true;
+      if (m.size() >= 1 && static_cast<const unsigned char*>(m.data())[0] == 1) ++subscriptions_;
   }
+  have_subscriber_ = true;
   return true;
 }
 

@@ -29,6 +29,8 @@ class FramePublisher {
   // True once at least one subscription has arrived, false on timeout or
   // when a signal interrupts the wait.
   [[nodiscard]] bool wait_for_subscriber(std::chrono::milliseconds timeout);
+  // The same for n subscriptions (each subscriber subscribes once).
+  [[nodiscard]] bool wait_for_subscribers(unsigned n, std::chrono::milliseconds timeout);
 
   // Sends header + pixels as one two-part message. Never blocks: returns
   // false if a subscriber's queue is full (the frame is dropped). With no
@@ -57,6 +59,7 @@ class FramePublisher {
  private:
   zmq::socket_t socket_;
   bool have_subscriber_ = false;
+  unsigned subscriptions_ = 0;
   std::string header_buffer_;
 };
 

@@ -40,6 +40,25 @@ FrameBank make_static_bank(const std::vector<double>& expected_e, const Detector
   return bank;
 }
 
+FrameBank make_turbulence_bank(TurbulenceSim& simulator, const DetectorModel& detector,
+                               const core::CameraSpec& camera, int count, std::uint64_t seed,
+                               const KeepGoing& keep_going) {
+  std::mt19937_64 rng(seed);
+  FrameBank bank;
+  bank.camera = camera;
+  const bool integer = camera.format != core::PixelFormat::kF32;
+  std::vector<double> expected(static_cast<std::size_t>(camera.width_px) * camera.height_px), adu(expected.size());
+  SubapertureTruth truth;
+  for (int k = 0; k < count && keep_going(); ++k) {
+    simulator.render(static_cast<std::uint64_t>(k), expected, camera.width_px, camera.height_px, truth);
+    expose_adu(expected, detector, rng, adu, integer);
+    bank.frames.push_back(encode_pixels(adu, camera.format));
+    bank.truth.push_back(SpotOffsets{truth.dx_px, truth.dy_px});
+    bank.illuminated.push_back(truth.illuminated);
+  }
+  return bank;
+}
+
 std::vector<float> make_mean_dark(const DetectorModel& detector, int width, int height, int n,
                                   std::uint64_t seed, const KeepGoing& keep_going) {
   std::mt19937_64 rng(seed);

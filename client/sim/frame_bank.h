@@ -14,6 +14,7 @@
 
 #include "client/sim/detector_model.h"
 #include "client/sim/spot_field.h"
+#include "client/sim/turbulence_sim.h"
 #include "daemon/core/geometry/sensor_geometry.h"
 
 namespace slopecast::sim {
@@ -22,6 +23,7 @@ struct FrameBank {
   core::CameraSpec camera;
   std::vector<std::vector<std::byte>> frames;  // row-major pixels of camera.format, tightly packed
   std::vector<SpotOffsets> truth;              // offsets rendered in frames[i]
+  std::vector<std::vector<double>> illuminated;  // turbulence scenes: fraction of each subaperture lit
 };
 
 // Called between frames; returning false stops the work early (Ctrl-C).
@@ -43,6 +45,12 @@ FrameBank make_frame_bank(const SpotFieldSettings& field, const DetectorModel& d
 FrameBank make_static_bank(const std::vector<double>& expected_e, const DetectorModel& detector,
                            const core::CameraSpec& camera, int count, std::uint64_t seed,
                            const KeepGoing& keep_going = [] { return true; });
+
+// Frames 0..count-1 of a turbulence simulation (frame k at time k /
+// rate_hz), exposed through the detector, with their truth.
+FrameBank make_turbulence_bank(TurbulenceSim& simulator, const DetectorModel& detector,
+                               const core::CameraSpec& camera, int count, std::uint64_t seed,
+                               const KeepGoing& keep_going = [] { return true; });
 
 // The mean of n dark exposures (no light at all): what a bench's dark
 // acquisition would produce, in ADU, row-major. Empty if stopped early.

@@ -27,6 +27,7 @@ std::string validate(const TurbulenceScene& s, const core::LensletGrid& grid) {
   if (s.subharmonic_levels < 0 || s.subharmonic_levels > 8) return "subharmonic levels must be 0..8";
   if (s.screen_samples != 0 && (s.screen_samples < 16 || s.screen_samples > 8192))
     return fmt::format("screen samples {} is outside 16..8192 (or 0: automatic)", s.screen_samples);
+  if (!(s.path_s >= 0)) return "the path duration must be non-negative";
   double total = 0.0;
   for (const auto& l : s.layers) {
     if (!(l.fraction > 0)) return "every layer's fraction must be positive";
@@ -41,6 +42,13 @@ std::string validate(const TurbulenceScene& s, const core::LensletGrid& grid) {
   if (s.zernike_nm.size() > 231) return "static aberrations go up to Noll j = 231 (radial order 20)";
   for (double z : s.zernike_nm)
     if (!std::isfinite(z)) return "Zernike coefficients must be numbers of nm";
+  {
+    const int pupil = samples_per_subaperture(s.optics, grid) * std::max(grid.n_subap_x, grid.n_subap_y);
+    if (s.screen_samples != 0 && s.screen_samples < pupil + 2)
+      return fmt::format("a screen of {} samples cannot hold the pupil's {} samples", s.screen_samples, pupil);
+    if (pupil + 2 > 2048 && s.screen_samples == 0)
+      return fmt::format("the pupil needs {} samples across, more than the largest automatic screen (2048)", pupil);
+  }
   if (!(s.photons_per_subaperture >= 0) || !(s.background_e_per_px >= 0) || !(s.dark_current_e_per_px >= 0))
     return "photons, background and dark current must be non-negative";
   if (!(s.rate_hz > 0)) return "the rate must be positive";
@@ -73,7 +81,13 @@ TurbulenceSim::TurbulenceSim(const TurbulenceScene& scene, const core::LensletGr
       }
     }
   if (scene.layers.empty()) return;
-  screen_n_ = scene.screen_samples ? scene.screen_samples : std::min(2048, 4 * std::max(pw, ph));
+  // Long enough for the pupil's path over path_s at the fastest wind, and
+  // at least 4 pupils (the low orders), at most 2048 samples.
+  double fastest = 0.0;
+  for (const auto& l : scene.layers) fastest = std::max(fastest, l.wind_m_per_s);
+  const int path = static_cast<int>(std::ceil(fastest * scene.path_s / dx_));
+  screen_n_ = scene.screen_samples ? scene.screen_samples
+                                   : std::min(2048, std::max(4 * std::max(pw, ph), std::max(pw, ph) + path + 2));
   double total = 0.0;
   for (const auto& l : scene.layers) total += l.fraction;
   std::mt19937_64 rng(seed);
@@ -95,20 +109,32 @@ void TurbulenceSim::phase(std::uint64_t k, std::vector<double>& out) const {
   const int pw = pupil_width(), ph = pupil_height(), n = screen_n_;
   out = static_phase_;
   const double t = static_cast<double>(k) / scene_.rate_hz;
+  // Room for the window's corner: 0..span (the window and one sample for
+  // the interpolation fit inside the screen).
+  const double span_x = n - pw - 1, span_y = n - ph - 1;
+  // From the far end for a negative travel, the near end for a positive
+  // one, the middle when still; folded back and forth into [0, span].
+  auto fold = [t](double span, double rate) {
+    double p = (rate < 0 ? span : rate > 0 ? 0.0 : span / 2) + rate * t;
+    const double period = 2 * span;
+    p -= std::floor(p / period) * period;
+    return p <= span ? p : period - p;
+  };
   for (std::size_t l = 0; l < screens_.size(); ++l) {
     const auto& layer = scene_.layers[l];
     const auto& screen = screens_[l];
     const double dir = layer.wind_direction_deg * pi / 180;
-    // The screen moves with the wind: the pupil sees the screen at x - v t.
-    double sx = -layer.wind_m_per_s * std::cos(dir) * t / dx_, sy = -layer.wind_m_per_s * std::sin(dir) * t / dx_;
-    sx -= std::floor(sx / n) * n;
-    sy -= std::floor(sy / n) * n;
+    // The pupil sees the screen at x - v t: its window on the screen moves
+    // against the wind, starting at the far edge, and turns back at each
+    // edge (a continuous path: no seam crosses the pupil).
+    const double sx = fold(span_x, -layer.wind_m_per_s * std::cos(dir) / dx_);
+    const double sy = fold(span_y, -layer.wind_m_per_s * std::sin(dir) / dx_);
     const int ix = static_cast<int>(std::floor(sx)), iy = static_cast<int>(std::floor(sy));
     const double fx = sx - ix, fy = sy - iy;
     for (int y = 0; y < ph; ++y) {
-      const int y0 = (y + iy) % n, y1 = (y + iy + 1) % n;
+      const int y0 = y + iy, y1 = std::min(y0 + 1, n - 1);
       for (int x = 0; x < pw; ++x) {
-        const int x0 = (x + ix) % n, x1 = (x + ix + 1) % n;
+        const int x0 = x + ix, x1 = std::min(x0 + 1, n - 1);
         const double v = (1 - fy) * ((1 - fx) * screen[static_cast<std::size_t>(y0) * n + x0] +
                                      fx * screen[static_cast<std::size_t>(y0) * n + x1]) +
                          fy * ((1 - fx) * screen[static_cast<std::size_t>(y1) * n + x0] +

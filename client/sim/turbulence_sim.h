@@ -6,13 +6,15 @@
 //
 // Screens: each layer has its own screen, made once (phase_screen.h) with
 // r0 scaled to its share of the turbulence (r0_i = r0 w_i^(-3/5), so the
-// layers' 5/3-power sum gives r0 back). The screen is larger than the
-// pupil's path (by default 4x the pupil, at most 2048 samples) and the pupil
-// moves across it at the wind's speed; sub-sample shifts are bilinear
-// interpolation between screen samples (which smooths the finest scales of
-// a moving layer slightly: at most a sample's width). A path longer than
-// the screen wraps around it (the FFT part is periodic; see phase_screen.h
-// for the low orders).
+// layers' 5/3-power sum gives r0 back). The screen is made larger than the
+// pupil's path (path_s at the fastest wind, and at least 4 pupils; at most
+// 2048 samples) and the pupil moves across it at the wind's speed;
+// sub-sample shifts are bilinear interpolation between screen samples
+// (which smooths the finest scales of a moving layer slightly: at most a
+// sample's width). A path longer than the screen turns back at its edge
+// and runs the other way: the phase stays continuous (wrapping around
+// would put a seam across the pupil, as the subharmonics are not periodic)
+// at the price of a reversed wind after each turn.
 //
 // Wavelengths: r0 is given at a stated wavelength (usually 500 nm) and the
 // optical path difference is achromatic, so the phase at the sensing
@@ -44,7 +46,8 @@ struct TurbulenceScene {
   double r0_wavelength_nm = 500.0;
   double outer_scale_m = 25.0;
   int subharmonic_levels = 3;
-  int screen_samples = 0;  // 0: 4x the pupil, at most 2048
+  int screen_samples = 0;  // 0: automatic (see the note above), at most 2048
+  double path_s = 0.0;     // time the screens must cover without turning back (the sim sets frames / rate)
   std::vector<TurbulenceLayer> layers{TurbulenceLayer{}};
   // Telescope pupil and the lenslets' footprint in it.
   double pupil_diameter_m = 1.0;
