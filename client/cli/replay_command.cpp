@@ -2,6 +2,8 @@
 // cube) as a camera would, at the recorded cadence, at a chosen rate, or
 // flow-controlled: each frame waits for the daemon's measurement of the one
 // before, so nothing is lost however slow the daemon is.
+#include <algorithm>
+#include <deque>
 #include <fstream>
 #include <iostream>
 #include <thread>
@@ -31,6 +33,7 @@ struct ReplayOptions {
   std::string control;
   double rate_hz = 0;  // 0: the recorded cadence (recordings) / 100 Hz (cubes)
   bool flow = false;
+  std::size_t flow_window = 1;
   double flow_timeout_s = 5.0;
   std::uint64_t first = 0, count = 0;
   std::uint64_t loops = 1;
@@ -244,6 +247,45 @@ void run_replay(ReplayOptions o) {
   Frame f;
   v1::FrameHeader h;
   const auto keep_going = [] { return !stop_requested(); };
+  // --flow: frames sent whose measurement has not come back, oldest first.
+  // settle(n) waits until fewer than n are outstanding; a frame whose
+  // measurement does not come within the timeout is counted and given up.
+  std::deque<std::uint64_t> in_flight;
+  bool save_failed = false;
+  auto settle = [&](std::size_t n) {
+    while (in_flight.size() >= n && !in_flight.empty() && !stop_requested()) {
+      const auto deadline = clock::now() + std::chrono::duration<double>(o.flow_timeout_s);
+      bool answered = false;
+      while (!answered && !stop_requested() && clock::now() < deadline) {
+        auto m = sub->receive(std::chrono::milliseconds(100));
+        if (!m) continue;
+        // Measurements come in frame order; one for a later frame means the
+        // daemon dropped or rejected the ones before it.
+        while (!in_flight.empty() && in_flight.front() != m->frame_seq() &&
+               std::find(in_flight.begin(), in_flight.end(), m->frame_seq()) != in_flight.end()) {
+          in_flight.pop_front();
+          ++unanswered;
+        }
+        if (in_flight.empty() || in_flight.front() != m->frame_seq()) continue;
+        in_flight.pop_front();
+        answered = true;
+        if (saved) {
+          const std::string bytes = m->SerializeAsString();
+          const std::string_view part[] = {bytes};
+          if (auto e = saved->append(client::RecordKind::kMeasurement, client::wall_clock_ns(), part); !e.empty()) {
+            fail(kCmd, e);
+            save_failed = true;
+            return false;
+          }
+        }
+      }
+      if (!answered && !stop_requested()) {
+        in_flight.pop_front();
+        ++unanswered;
+      }
+    }
+    return true;
+  };
   for (std::uint64_t loop = 0; (o.loops == 0 || loop < o.loops) && !stop_requested(); ++loop) {
     if (loop > 0) source->rewind();
     index = 0;
@@ -281,20 +323,8 @@ void run_replay(ReplayOptions o) {
         break;
       ++sent;
       if (o.flow) {
-        const auto deadline = clock::now() + std::chrono::duration<double>(o.flow_timeout_s);
-        bool answered = false;
-        while (!answered && !stop_requested() && clock::now() < deadline) {
-          auto m = sub->receive(std::chrono::milliseconds(100));
-          if (!m || m->frame_seq() != seq) continue;
-          answered = true;
-          if (saved) {
-            const std::string bytes = m->SerializeAsString();
-            const std::string_view part[] = {bytes};
-            if (auto e = saved->append(client::RecordKind::kMeasurement, client::wall_clock_ns(), part); !e.empty())
-              return fail(kCmd, e);
-          }
-        }
-        if (!answered && !stop_requested()) ++unanswered;
+        in_flight.push_back(seq);
+        if (!settle(o.flow_window)) return;
       }
       if (clock::now() - last_line >= std::chrono::seconds(1)) {
         last_line = clock::now();
@@ -305,6 +335,7 @@ void run_replay(ReplayOptions o) {
       }
     }
   }
+  if (o.flow && !save_failed && !settle(1)) return;  // the last frames' measurements
   if (saved)
     if (auto e = saved->close(); !e.empty()) return fail(kCmd, e);
   const double elapsed = std::chrono::duration<double>(clock::now() - start).count();
@@ -339,6 +370,10 @@ void add_replay_command(CLI::App& app) {
   cmd->add_flag("--flow", o->flow,
                 "Flow-controlled: send each frame only after the daemon's measurement of the one before (lossless, "
                 "as fast as the daemon goes)");
+  cmd->add_option("--flow-window", o->flow_window,
+                  "--flow: frames sent ahead of the last measurement received (1: strictly one at a time; more "
+                  "overlaps transport and measuring; keep it at most the daemon's frame_queue_depth)")
+      ->capture_default_str()->check(CLI::Range(1, 1024));
   cmd->add_option("--flow-timeout-s", o->flow_timeout_s, "--flow: how long to wait for a measurement before going on")
       ->capture_default_str()->check(CLI::PositiveNumber);
   cmd->add_option("--first", o->first, "Skip this many frames first")->capture_default_str();

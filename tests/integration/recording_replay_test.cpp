@@ -170,7 +170,7 @@ TEST_CASE("simulated turbulence, recorded, replays through a fresh daemon to ide
   const auto b = h2.dir / "b.screc";
   testing::ChildProcess replay(SLOPECAST_PATH,
                                {"replay", a.string(), "--frames-out", h2.frames_endpoint, "--measurements-from",
-                                h2.measurements_endpoint, "--control", h2.control_endpoint, "--flow",
+                                h2.measurements_endpoint, "--control", h2.control_endpoint, "--flow", "--flow-window", "4",
                                 "--save-measurements", b.string()},
                                h2.dir / "replay.log");
   INFO("replay log:\n" << testing::read_log(h2.dir / "replay.log") << "\nsecond daemon log:\n" << h2.log());
