@@ -12,6 +12,7 @@
 #include "daemon/io/wire_codec.h"
 #include "slopecast/v1/frame.pb.h"
 #include "slopecast/v1/measurement.pb.h"
+#include "slopecast/v1/recording.pb.h"
 
 namespace slopecast::cli {
 
@@ -25,13 +26,14 @@ struct ExportOptions {
   std::string fits_cube;
   std::string measurements_csv;
   std::string measurements_fits;
+  std::string truth_csv;
   std::uint64_t first = 0, count = 0;
 };
 
 void run_export(const ExportOptions& o) {
-  if (o.fits_cube.empty() && o.measurements_csv.empty() && o.measurements_fits.empty())
-    return fail(kCmd, "nothing to export: give --fits-cube, --measurements-csv and/or --measurements-fits");
-  for (const auto& out : {o.fits_cube, o.measurements_csv, o.measurements_fits})
+  if (o.fits_cube.empty() && o.measurements_csv.empty() && o.measurements_fits.empty() && o.truth_csv.empty())
+    return fail(kCmd, "nothing to export: give --fits-cube, --measurements-csv, --measurements-fits and/or --truth-csv");
+  for (const auto& out : {o.fits_cube, o.measurements_csv, o.measurements_fits, o.truth_csv})
     if (!out.empty() && std::filesystem::exists(out))
       return fail(kCmd, fmt::format("'{}' exists; choose a new name (nothing is overwritten)", out));
   // Frames.
@@ -46,6 +48,13 @@ void run_export(const ExportOptions& o) {
     csv.open(o.measurements_csv);
     if (!csv) return fail(kCmd, fmt::format("cannot write '{}'", o.measurements_csv));
     csv << "frame_seq,camera_time_ns,subaperture,slope_x,slope_y,flux_adu,peak_adu,valid,flags\n";
+  }
+  std::ofstream truth;
+  std::uint64_t truths = 0;
+  if (!o.truth_csv.empty()) {
+    truth.open(o.truth_csv);
+    if (!truth) return fail(kCmd, fmt::format("cannot write '{}'", o.truth_csv));
+    truth << "frame_seq,subaperture,true_dx_px,true_dy_px,illuminated\n";
   }
   std::vector<io::FitsColumn> table{{"FRAME_SEQ", true, "", {}},  {"CAMERA_TIME_NS", true, "ns", {}},
                                     {"SUBAP", true, "", {}},      {"SLOPE_X", false, "", {}},
@@ -97,6 +106,13 @@ void run_export(const ExportOptions& o) {
         seqs.push_back(static_cast<double>(h.seq()));
         camera_ns.push_back(static_cast<double>(h.camera_time_ns()));
         received_ns.push_back(static_cast<double>(m.received_ns));
+      } else if (m.kind == client::RecordKind::kTruth && truth.is_open()) {
+        v1::FrameTruth t;
+        if (m.parts.size() != 1 || !t.ParseFromString(m.parts[0])) continue;
+        ++truths;
+        for (int s = 0; s < t.true_dx_px_size() && s < t.true_dy_px_size(); ++s)
+          truth << fmt::format("{},{},{:.6f},{:.6f},{:.4f}\n", t.frame_seq(), s, t.true_dx_px(s), t.true_dy_px(s),
+                               s < t.illuminated_size() ? t.illuminated(s) : 1.0f);
       } else if (m.kind == client::RecordKind::kMeasurement &&
                  (!o.measurements_csv.empty() || !o.measurements_fits.empty())) {
         v1::Measurement meas;
@@ -136,6 +152,10 @@ void run_export(const ExportOptions& o) {
     std::cout << fmt::format("wrote {} frames of {} x {} {} to {} (table FRAMES: seq and times)\n", seqs.size(),
                              width, height, core::pixel_format_name(format), o.fits_cube);
   }
+  if (truth.is_open()) {
+    truth.close();
+    std::cout << fmt::format("wrote the truth of {} frames to {}\n", truths, o.truth_csv);
+  }
   if (csv.is_open()) {
     csv.close();
     std::cout << fmt::format("wrote {} measurements to {}\n", measurements, o.measurements_csv);
@@ -170,6 +190,9 @@ void add_export_command(CLI::App& app) {
                   "slope_y,flux_adu,peak_adu,valid,flags)");
   cmd->add_option("--measurements-fits", o->measurements_fits,
                   "Measurements to a FITS binary table MEASUREMENTS, one row per subaperture");
+  cmd->add_option("--truth-csv", o->truth_csv,
+                  "A simulator's truth (recorded with --truth-from) to CSV: frame_seq,subaperture,true_dx_px,"
+                  "true_dy_px,illuminated");
   cmd->add_option("--first", o->first, "Frames: skip this many first")->capture_default_str();
   cmd->add_option("--count", o->count, "Frames: at most this many (0: all)")->capture_default_str();
   cmd->callback([o] { run_export(*o); });

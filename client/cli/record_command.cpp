@@ -24,6 +24,7 @@
 #include "client/lib/recording.h"
 #include "slopecast/v1/frame.pb.h"
 #include "slopecast/v1/measurement.pb.h"
+#include "slopecast/v1/recording.pb.h"
 
 namespace slopecast::cli {
 
@@ -35,6 +36,7 @@ struct RecordOptions {
   std::string config;
   std::string frames_from;
   std::string measurements_from;
+  std::string truth_from;
   bool no_frames = false, no_measurements = false;
   std::string out;
   std::uint64_t max_frames = 0;
@@ -118,10 +120,11 @@ void run_record(RecordOptions o) {
   }
   if (o.no_frames) o.frames_from.clear();
   if (o.no_measurements) o.measurements_from.clear();
-  if (o.frames_from.empty() && o.measurements_from.empty())
+  if (o.frames_from.empty() && o.measurements_from.empty() && o.truth_from.empty())
     return fail(kCmd, "nothing to record: give --frames-from and/or --measurements-from (or --config)");
   if (!o.frames_from.empty() && !endpoint_ok(kCmd, "--frames-from", o.frames_from)) return;
   if (!o.measurements_from.empty() && !endpoint_ok(kCmd, "--measurements-from", o.measurements_from)) return;
+  if (!o.truth_from.empty() && !endpoint_ok(kCmd, "--truth-from", o.truth_from)) return;
   if (o.rotate_bytes && o.rotate_bytes < (1u << 20)) return fail(kCmd, "--rotate-bytes must be at least 1 MiB");
   const std::filesystem::path first_path = o.rotate_bytes ? client::rotated_path(o.out, 0) : std::filesystem::path(o.out);
   if (std::filesystem::exists(first_path))
@@ -130,7 +133,7 @@ void run_record(RecordOptions o) {
   if (!load_keys(kCmd, o.keys, curve)) return;
 
   zmq::context_t ctx(1);
-  std::optional<zmq::socket_t> frames, measurements;
+  std::optional<zmq::socket_t> frames, measurements, truths;
   try {
     if (!o.frames_from.empty()) {
       frames.emplace(ctx, zmq::socket_type::sub);
@@ -146,6 +149,13 @@ void run_record(RecordOptions o) {
       measurements->set(zmq::sockopt::rcvhwm, 10000);
       measurements->set(zmq::sockopt::subscribe, "");
       measurements->connect(o.measurements_from);
+    }
+    if (!o.truth_from.empty()) {
+      truths.emplace(ctx, zmq::socket_type::sub);
+      truths->set(zmq::sockopt::linger, 0);
+      truths->set(zmq::sockopt::rcvhwm, 10000);
+      truths->set(zmq::sockopt::subscribe, "");
+      truths->connect(o.truth_from);
     }
   } catch (const zmq::error_t& e) {
     return fail(kCmd, fmt::format("cannot connect: {}", e.what()));
@@ -210,8 +220,8 @@ void run_record(RecordOptions o) {
     writer_done = true;
   });
 
-  SeqTally frame_seq, measurement_seq;
-  std::uint64_t overflow_frames = 0, overflow_measurements = 0, malformed = 0, frames_queued = 0;
+  SeqTally frame_seq, measurement_seq, truth_seq;
+  std::uint64_t overflow_frames = 0, overflow_measurements = 0, overflow_truth = 0, malformed = 0, frames_queued = 0;
   std::cout << fmt::format("recording{}{} to {}{}\n", o.frames_from.empty() ? "" : " frames from " + o.frames_from,
                            o.measurements_from.empty() ? "" : " measurements from " + o.measurements_from, o.out,
                            o.rotate_bytes ? fmt::format(" (a new file every {} bytes)", o.rotate_bytes) : "")
@@ -222,6 +232,7 @@ void run_record(RecordOptions o) {
   std::vector<zmq::pollitem_t> items;
   if (frames) items.push_back({frames->handle(), 0, ZMQ_POLLIN, 0});
   if (measurements) items.push_back({measurements->handle(), 0, ZMQ_POLLIN, 0});
+  if (truths) items.push_back({truths->handle(), 0, ZMQ_POLLIN, 0});
   const char* stop_reason = "stopped by a signal";
   std::uint64_t last_frame_seq = 0;
   std::optional<clock::time_point> grace_until;
@@ -246,6 +257,16 @@ void run_record(RecordOptions o) {
           continue;
         }
         seq = h.seq();
+      } else if (kind == client::RecordKind::kTruth) {
+        v1::FrameTruth h;
+        if (m.parts.size() != 1 || !h.ParseFromString(m.parts[0])) {
+          ++malformed;
+          continue;
+        }
+        truth_seq.add(h.frame_seq());
+        if (o.max_frames && frames_queued >= o.max_frames && h.frame_seq() > last_frame_seq) continue;
+        if (!queue.push(std::move(m))) ++overflow_truth;
+        continue;
       } else {
         v1::Measurement h;
         if (m.parts.size() != 1 || !h.ParseFromString(m.parts[0])) {
@@ -274,7 +295,9 @@ void run_record(RecordOptions o) {
     if (o.max_frames && frames_queued >= o.max_frames) {
       // The frames are in; with measurements recorded too, wait (up to 2 s)
       // for the measurement of the last frame so that the file holds both.
-      if (!measurements || (measurement_seq.seen && measurement_seq.last >= last_frame_seq)) {
+      const bool measured = !measurements || (measurement_seq.seen && measurement_seq.last >= last_frame_seq);
+      const bool told = !truths || (truth_seq.seen && truth_seq.last >= last_frame_seq);
+      if (measured && told) {
         stop_reason = "frame limit reached";
         break;
       }
@@ -292,6 +315,7 @@ void run_record(RecordOptions o) {
         client::PollResult::kReady) {
       if (frames) receive_from(*frames, client::RecordKind::kFrame);
       if (measurements) receive_from(*measurements, client::RecordKind::kMeasurement);
+      if (truths) receive_from(*truths, client::RecordKind::kTruth);
     }
     if (clock::now() - last_line >= std::chrono::seconds(1)) {
       last_line = clock::now();
@@ -313,6 +337,9 @@ void run_record(RecordOptions o) {
   std::cout << fmt::format("measurements: received {}, missed {} (seq gaps), restarts {}, dropped by the recorder {}\n",
                            measurement_seq.received, measurement_seq.missed, measurement_seq.restarts,
                            overflow_measurements);
+  if (truths)
+    std::cout << fmt::format("truth: received {}, missed {} (seq gaps), dropped by the recorder {}\n",
+                             truth_seq.received, truth_seq.missed, overflow_truth);
   if (malformed) std::cout << fmt::format("malformed messages ignored: {}\n", malformed);
   if (!result.error.empty()) return fail(kCmd, result.error);
   if (stop_requested()) exit_code() = stopped_exit_code();
@@ -328,6 +355,7 @@ void add_record_command(CLI::App& app) {
       ->check(CLI::ExistingFile);
   cmd->add_option("--frames-from", o->frames_from, "Camera endpoint to subscribe to for frames");
   cmd->add_option("--measurements-from", o->measurements_from, "Daemon endpoint to subscribe to for measurements");
+  cmd->add_option("--truth-from", o->truth_from, "Simulator endpoint (`slopecast sim --truth-out`) for each frame's truth");
   cmd->add_flag("--no-frames", o->no_frames, "With --config: record measurements only");
   cmd->add_flag("--no-measurements", o->no_measurements, "With --config: record frames only");
   cmd->add_option("--out", o->out, "Recording file to create (never overwritten; with --rotate-bytes, NAME.0000.screc, "

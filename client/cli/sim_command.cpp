@@ -25,6 +25,7 @@
 #include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/fits_image.h"
 #include "daemon/io/wire_codec.h"
+#include "slopecast/v1/recording.pb.h"
 
 namespace slopecast::cli {
 
@@ -53,6 +54,7 @@ struct SimOptions {
   double full_scale_adu = 0.0;  // 0: the pixel type's full scale
   std::uint64_t seed = 1;
   std::string truth_csv;
+  std::string truth_out;
   std::string write_dark;
   int dark_frames = 100;
   double wait_subscriber_s = 10.0;
@@ -137,6 +139,9 @@ void run_sim(SimOptions o) {
   if (o.scene != "spots" && o.scene != "lattice" && o.scene != "dark" && o.scene != "uniform" &&
       o.scene != "turbulence")
     return fail(kCmd, fmt::format("--scene '{}' is not one of spots, lattice, dark, uniform", o.scene));
+  if (o.scene != "spots" && o.scene != "turbulence" && !o.truth_out.empty())
+    return fail(kCmd, "--truth-out belongs to the spots and turbulence scenes");
+  if (!o.truth_out.empty() && !endpoint_ok(kCmd, "--truth-out", o.truth_out)) return;
   if (o.scene != "spots" && o.scene != "turbulence" && !o.truth_csv.empty())
     return fail(kCmd, "--truth-csv belongs to --scene spots (the other scenes are static; their truth is the "
                       "lattice settings themselves)");
@@ -182,10 +187,12 @@ void run_sim(SimOptions o) {
   }
   zmq::context_t ctx(1);
   std::unique_ptr<client::FramePublisher> pub;
+  std::unique_ptr<client::FramePublisher> truth_pub;  // FrameTruth messages as single parts
   try {
     pub = std::make_unique<client::FramePublisher>(ctx, o.frames_out);
+    if (!o.truth_out.empty()) truth_pub = std::make_unique<client::FramePublisher>(ctx, o.truth_out, 10000);
   } catch (const zmq::error_t& e) {
-    return fail(kCmd, fmt::format("cannot bind {}: {}", o.frames_out, e.what()));
+    return fail(kCmd, fmt::format("cannot bind {} / {}: {}", o.frames_out, o.truth_out, e.what()));
   }
   const int distinct =
       static_cast<int>(o.frames > 0 ? std::min<std::uint64_t>(o.frames, o.distinct_frames) : o.distinct_frames);
@@ -238,6 +245,11 @@ void run_sim(SimOptions o) {
       return fail(kCmd, fmt::format("fewer than {} subscriber(s) on {} within {} s", o.subscribers, o.frames_out,
                                     o.wait_subscriber_s));
     }
+    if (truth_pub &&
+        !truth_pub->wait_for_subscriber(std::chrono::milliseconds(static_cast<long>(o.wait_subscriber_s * 1000)))) {
+      if (stop_requested()) return;
+      return fail(kCmd, fmt::format("no subscriber on --truth-out {} within {} s", o.truth_out, o.wait_subscriber_s));
+    }
   }
   std::cout << fmt::format("publishing on {} at {} Hz{}\n", o.frames_out, o.rate_hz,
                            o.frames ? fmt::format(", {} frames", o.frames) : std::string(" until stopped"))
@@ -246,7 +258,7 @@ void run_sim(SimOptions o) {
   using clock = std::chrono::steady_clock;
   const auto period = std::chrono::duration_cast<clock::duration>(std::chrono::duration<double>(1.0 / o.rate_hz));
   const auto start = clock::now();
-  std::uint64_t sent = 0, dropped = 0;
+  std::uint64_t sent = 0, dropped = 0, truth_dropped = 0;
   v1::FrameHeader header =
       client::make_frame_header(0, 0, camera.width_px, camera.height_px, io::to_wire(camera.format));
   header.set_exposure_us(1e6 / o.rate_hz);
@@ -268,6 +280,20 @@ void run_sim(SimOptions o) {
       continue;
     }
     ++sent;
+    if (truth_pub && !bank.truth.empty()) {
+      const auto& t = bank.truth[k];
+      v1::FrameTruth ft;
+      ft.set_frame_seq(seq);
+      ft.set_n_subap_x(static_cast<std::uint32_t>(o.subapertures_x));
+      ft.set_n_subap_y(static_cast<std::uint32_t>(o.subapertures_y));
+      for (std::size_t i = 0; i < t.dx_px.size(); ++i) {
+        ft.add_true_dx_px(static_cast<float>(t.dx_px[i]));
+        ft.add_true_dy_px(static_cast<float>(t.dy_px[i]));
+        ft.add_illuminated(bank.illuminated.empty() ? 1.0f : static_cast<float>(bank.illuminated[k][i]));
+      }
+      const std::string part[] = {ft.SerializeAsString()};
+      if (!truth_pub->publish_parts(part)) ++truth_dropped;
+    }
     if (truth.is_open() && !bank.truth.empty()) {  // only frames that left: what a test can expect to see measured
       const auto& t = bank.truth[k];
       for (std::size_t i = 0; i < t.dx_px.size(); ++i) {
@@ -283,6 +309,7 @@ void run_sim(SimOptions o) {
                            "full{}\n",
                            sent, elapsed, elapsed > 0 ? sent / elapsed : 0.0, dropped,
                            stop_requested() ? "; stopped by a signal" : "");
+  if (truth_dropped) std::cout << fmt::format("{} truth messages dropped at a full subscriber queue\n", truth_dropped);
 }
 
 }  // namespace
@@ -325,6 +352,9 @@ void add_sim_command(CLI::App& app) {
   cmd->add_option("--seed", o->seed, "Random seed (same seed, same frames)")->capture_default_str();
   cmd->add_option("--truth-csv", o->truth_csv,
                   "Write the true offsets of every frame sent (frame_seq,subaperture,true_dx_px,true_dy_px)");
+  cmd->add_option("--truth-out", o->truth_out,
+                  "Also publish each frame's truth on this endpoint (bound here; one FrameTruth message per frame "
+                  "sent, proto/slopecast/v1/recording.proto): `slopecast record --truth-from` keeps it");
   cmd->add_option("--write-dark", o->write_dark,
                   "Instead of publishing, write the mean of --dark-frames dark exposures (no light) of the "
                   "camera's size to this FITS file and exit");

@@ -255,7 +255,7 @@ ReadOutcome RecordingReader::parse_record(RecordedMessage& out, std::uint64_t& n
   const std::byte* p = body_.data() + 4;
   const auto kind = get<std::uint8_t>(p);
   const auto count = get<std::uint8_t>(p + 1);
-  if (kind < 1 || kind > 3 || count > kMaxRecordParts) {
+  if (kind < 1 || kind > 4 || count > kMaxRecordParts) {
     why = fmt::format("the record at offset {} has kind {} and {} parts", offset_, kind, count);
     return ReadOutcome::kCorrupt;
   }

@@ -11,7 +11,7 @@
 //              recording.proto), u32 CRC-32 of those protobuf bytes
 //   record  := u32 sync 0x31524353 ("SCR1"), u32 body length L,
 //              body (L bytes), u32 CRC-32 of (the length field + body)
-//   body    := u8 kind, u8 part count P, u16 zero, u64 received_ns,
+//   body    := u8 kind (1 frame, 2 measurement, 3 index, 4 truth), u8 part count P, u16 zero, u64 received_ns,
 //              P x (u32 part length, part bytes)
 //   index   := a record of kind kIndex whose one part lists the u64 file
 //              offset of every data record, in order
@@ -45,7 +45,8 @@
 
 namespace slopecast::client {
 
-enum class RecordKind : std::uint8_t { kFrame = 1, kMeasurement = 2, kIndex = 3 };
+// kTruth: a FrameTruth (proto/slopecast/v1/recording.proto) from a simulator.
+enum class RecordKind : std::uint8_t { kFrame = 1, kMeasurement = 2, kIndex = 3, kTruth = 4 };
 
 struct RecordedMessage {
   RecordKind kind = RecordKind::kFrame;

@@ -17,6 +17,7 @@
 #include <thread>
 
 #include "client/lib/recording.h"
+#include "daemon/io/fits_image.h"
 #include "slopecast/v1/frame.pb.h"
 #include "slopecast/v1/measurement.pb.h"
 #include "tests/integration/daemon_harness.h"
@@ -59,7 +60,7 @@ bit_depth = 16
 )";
 
 struct Contents {
-  std::vector<client::RecordedMessage> frames, measurements;
+  std::vector<client::RecordedMessage> frames, measurements, truths;
   int damaged = 0, torn = 0;
 };
 
@@ -74,7 +75,10 @@ Contents read_recording(const std::filesystem::path& path) {
     if (o == client::ReadOutcome::kTornTail) ++c.torn;
     if (o == client::ReadOutcome::kCorrupt) ++c.damaged;
     if (o != client::ReadOutcome::kRecord) continue;
-    (m.kind == client::RecordKind::kFrame ? c.frames : c.measurements).push_back(m);
+    (m.kind == client::RecordKind::kFrame ? c.frames
+     : m.kind == client::RecordKind::kTruth ? c.truths
+                                             : c.measurements)
+        .push_back(m);
   }
   return c;
 }
@@ -105,15 +109,19 @@ TEST_CASE("simulated turbulence, recorded, replays through a fresh daemon to ide
   }
   const auto a = h.dir / "a.screc";
   const int frames = 40;
+  std::string truth_endpoint = "ipc://";
+  truth_endpoint += (h.dir / "truth").string();
   testing::ChildProcess rec(SLOPECAST_PATH,
                             {"record", "--frames-from", h.frames_endpoint, "--measurements-from",
-                             h.measurements_endpoint, "--out", a.string(), "--frames", std::to_string(frames)},
+                             h.measurements_endpoint, "--truth-from", truth_endpoint, "--out", a.string(), "--frames",
+                             std::to_string(frames)},
                             h.dir / "record.log");
   REQUIRE(h.wait_for_subscribers(1));  // the recorder's measurement subscription
   std::vector<std::string> args = {"sim", "--scenario", (h.dir / "scenario.toml").string(), "--frames-out",
                                    h.frames_endpoint, "--frames", std::to_string(frames), "--distinct-frames",
                                    std::to_string(frames), "--rate-hz", "200", "--block-when-full", "--subscribers",
-                                   "2", "--truth-csv", (h.dir / "truth.csv").string(), "--seed", "3"};
+                                   "2", "--truth-csv", (h.dir / "truth.csv").string(), "--truth-out", truth_endpoint,
+                                   "--seed", "3"};
   args.insert(args.end(), kGrid.begin(), kGrid.end());
   testing::ChildProcess sim(SLOPECAST_PATH, args, h.dir / "sim.log");
   INFO("sim log:\n" << testing::read_log(h.dir / "sim.log") << "\nrecord log:\n"
@@ -124,6 +132,7 @@ TEST_CASE("simulated turbulence, recorded, replays through a fresh daemon to ide
   const auto first = read_recording(a);
   REQUIRE(first.frames.size() == frames);
   REQUIRE(first.measurements.size() == frames);
+  REQUIRE(first.truths.size() == frames);
   CHECK(first.damaged == 0);
   CHECK(first.torn == 0);
 
@@ -196,7 +205,8 @@ TEST_CASE("simulated turbulence, recorded, replays through a fresh daemon to ide
   const auto cube = h.dir / "frames.fits";
   testing::ChildProcess ex(SLOPECAST_PATH,
                            {"export", a.string(), "--fits-cube", cube.string(), "--measurements-csv",
-                            (h.dir / "m.csv").string(), "--measurements-fits", (h.dir / "m.fits").string()},
+                            (h.dir / "m.csv").string(), "--measurements-fits", (h.dir / "m.fits").string(),
+                            "--truth-csv", (h.dir / "truth_exported.csv").string()},
                            h.dir / "export.log");
   INFO("export log:\n" << testing::read_log(h.dir / "export.log"));
   REQUIRE(ex.wait(30s) == 0);
@@ -217,9 +227,38 @@ TEST_CASE("simulated turbulence, recorded, replays through a fresh daemon to ide
   int rows = 0;
   for (std::string line; std::getline(csv, line);) ++rows;
   CHECK(rows == 1 + frames * 64);
+  // The measurements table holds the same numbers as the CSV and the
+  // recording (cfitsio reads it back).
+  auto table = io::read_fits_table(h.dir / "m.fits", "MEASUREMENTS");
+  REQUIRE(std::holds_alternative<io::FitsTable>(table));
+  const auto& t = std::get<io::FitsTable>(table);
+  REQUIRE(t.rows == frames * 64);
+  v1::Measurement m5;
+  REQUIRE(m5.ParseFromString(first.measurements[5].parts[0]));
+  for (int s = 0; s < 64; ++s) {
+    CHECK(t.find("SLOPE_X")->values[5 * 64 + s] == m5.slope_x(s));
+    CHECK(t.find("FRAME_SEQ")->values[5 * 64 + s] == 5);
+  }
+  // The truth kept in the recording is the truth the simulator wrote
+  // (float on the wire: 1e-6 px).
+  std::ifstream t1(h.dir / "truth.csv"), t2(h.dir / "truth_exported.csv");
+  std::string l1, l2;
+  int lines = 0;
+  while (std::getline(t1, l1) && std::getline(t2, l2)) {
+    if (lines++ == 0) {
+      CHECK(l1 == l2);
+      continue;
+    }
+    double a1[5], a2[5];
+    REQUIRE(std::sscanf(l1.c_str(), "%lf,%lf,%lf,%lf,%lf", &a1[0], &a1[1], &a1[2], &a1[3], &a1[4]) == 5);
+    REQUIRE(std::sscanf(l2.c_str(), "%lf,%lf,%lf,%lf,%lf", &a2[0], &a2[1], &a2[2], &a2[3], &a2[4]) == 5);
+    for (int i = 0; i < 5; ++i) REQUIRE(a1[i] == Approx(a2[i]).margin(1e-6));
+  }
+  CHECK(lines == 1 + frames * 64);
 }
 
-TEST_CASE("FITS cubes written by astropy replay with astropy's pixels, for BITPIX 8, 16, 32 and -32",
+TEST_CASE("FITS cubes written by astropy replay with astropy's pixels, and slopecast's cubes read in astropy, for "
+          "BITPIX 8, 16, 32 and -32",
           "[integration][recording]") {
   testing::TempDir dir;
   run_python("write " + dir.path().string(), dir / "astropy_write.log");
@@ -227,11 +266,16 @@ TEST_CASE("FITS cubes written by astropy replay with astropy's pixels, for BITPI
     const char* name;
     v1::PixelType type;
     std::function<double(int)> value;  // of p = (x + 7y + 13z) % 251
+    const char* astropy_says;          // how astropy sees slopecast's export of the replayed frames
   };
-  const Case cases[] = {{"cube_8", v1::PIXEL_TYPE_U8, [](int p) { return p; }},
-                        {"cube_16", v1::PIXEL_TYPE_U16, [](int p) { return 40000 + 97 * p; }},
-                        {"cube_32", v1::PIXEL_TYPE_U32, [](int p) { return 100000.0 * p + 12345; }},
-                        {"cube_m32", v1::PIXEL_TYPE_F32, [](int p) { return p + 0.25; }}};
+  const Case cases[] = {
+      {"cube_8", v1::PIXEL_TYPE_U8, [](int p) { return p; }, "BITPIX 8 BZERO 0 shape (5, 12, 20) dtype uint8"},
+      {"cube_16", v1::PIXEL_TYPE_U16, [](int p) { return 40000 + 97 * p; },
+       "BITPIX 16 BZERO 32768 shape (5, 12, 20) dtype uint16"},
+      {"cube_32", v1::PIXEL_TYPE_U32, [](int p) { return 100000.0 * p + 12345; },
+       "BITPIX 32 BZERO 2147483648 shape (5, 12, 20) dtype uint32"},
+      {"cube_m32", v1::PIXEL_TYPE_F32, [](int p) { return p + 0.25; },
+       "BITPIX -32 BZERO 0 shape (5, 12, 20) dtype >f4"}};  // big-endian float, as stored
   for (const auto& c : cases) {
     INFO(c.name);
     std::string endpoint = "ipc://";  // built by append: GCC 12 warns falsely (-Wrestrict) on "literal" + string
@@ -270,6 +314,18 @@ TEST_CASE("FITS cubes written by astropy replay with astropy's pixels, for BITPI
         }
       CHECK(wrong == 0);
     }
+    // And back: slopecast exports the recording as a cube in the camera's
+    // pixel type, which astropy reads with the same pixels.
+    const auto back = dir / (std::string(c.name) + "_back.fits");
+    testing::ChildProcess ex(SLOPECAST_PATH, {"export", out.string(), "--fits-cube", back.string()},
+                             dir / "export.log");
+    REQUIRE(ex.wait(30s) == 0);
+    const auto raw = dir / (std::string(c.name) + ".raw");
+    const std::string said = run_python("read " + back.string() + " " + raw.string(), dir / "astropy_read.log");
+    CHECK_THAT(said, Catch::Contains(c.astropy_says));
+    std::string expected;
+    for (const auto& f : got.frames) expected += f.parts[1];
+    CHECK(testing::read_log(raw) == expected);
   }
 }
 
@@ -307,4 +363,47 @@ TEST_CASE("a recorder killed with SIGKILL leaves a file read up to its last whol
     if (k) CHECK(fh.seq() > last);
     last = fh.seq();
   }
+}
+
+TEST_CASE("a long recording rotates into numbered files that read back as one stream", "[integration][recording]") {
+  testing::TempDir dir;
+  std::string endpoint = "ipc://";
+  endpoint += (dir / "frames.ipc").string();
+  const auto out = dir / "long.screc";
+  // 96 x 96 u16 frames are 18 kB: 150 of them make ~2.8 MB, three 1 MiB files.
+  testing::ChildProcess rec(SLOPECAST_PATH,
+                            {"record", "--frames-from", endpoint, "--out", out.string(), "--frames", "150",
+                             "--rotate-bytes", "1048576"},
+                            dir / "rec.log");
+  std::vector<std::string> args = {"sim", "--frames-out", endpoint, "--rate-hz", "1000", "--frames", "150",
+                                   "--distinct-frames", "10", "--block-when-full"};
+  args.insert(args.end(), kGrid.begin(), kGrid.end());
+  testing::ChildProcess sim(SLOPECAST_PATH, args, dir / "sim.log");
+  INFO("record log:\n" << testing::read_log(dir / "rec.log") << "\nsim log:\n" << testing::read_log(dir / "sim.log"));
+  REQUIRE(sim.wait(60s) == 0);
+  REQUIRE(rec.wait(30s) == 0);
+  std::uint64_t next_seq = 0, records = 0;
+  unsigned parts = 0;
+  for (unsigned part = 0; std::filesystem::exists(client::rotated_path(out, part)); ++part) {
+    const auto path = client::rotated_path(out, part);
+    auto opened = client::RecordingReader::open(path);
+    REQUIRE(std::holds_alternative<std::unique_ptr<client::RecordingReader>>(opened));
+    auto& r = *std::get<std::unique_ptr<client::RecordingReader>>(opened);
+    CHECK(r.indexed());  // closed cleanly
+    CHECK(r.header().part() == part);
+    CHECK(r.header().first_record() == records);
+    CHECK(r.header().width_px() == 96);
+    if (part + 1 < 3) CHECK(std::filesystem::file_size(path) < 1048576 + 20000);  // one frame past the limit at most
+    client::RecordedMessage m;
+    while (r.next(m) == client::ReadOutcome::kRecord) {
+      v1::FrameHeader fh;
+      REQUIRE(fh.ParseFromString(m.parts[0]));
+      CHECK(fh.seq() == next_seq);
+      ++next_seq;
+      ++records;
+    }
+    ++parts;
+  }
+  CHECK(parts == 3);
+  CHECK(records == 150);
 }
