@@ -66,6 +66,11 @@ TEST_CASE("a soak at 1 kHz keeps exact accounting and flat memory", "[integratio
   CHECK(s.measurements_published() == s.frames_processed());
   CHECK(sub.malformed() == 0);
   REQUIRE(rss_warm > 0);
-  CHECK(growth < 1024);
+  // Flat memory: what the daemon may legitimately hold on to grows with
+  // how far it fell behind on a busy machine, up to its bounded frame queue
+  // (16 frames of 115 200 bytes = 1800 kB); 1 MiB above that is slack for
+  // allocator pages. A leak of 150 bytes a frame would pass it in 18 000
+  // frames; SLOPECAST_SOAK_S=600 makes the bound ~30x tighter per frame.
+  CHECK(growth < 1800 + 1024);
   CHECK(h.stop(5s) == 0);
 }
