@@ -134,29 +134,20 @@ void run_record(RecordOptions o) {
 
   zmq::context_t ctx(1);
   std::optional<zmq::socket_t> frames, measurements, truths;
+  // A subscriber to everything on endpoint ("" leaves the socket unmade).
+  auto subscribe = [&](std::optional<zmq::socket_t>& socket, const std::string& endpoint, int hwm, bool keyed) {
+    if (endpoint.empty()) return;
+    socket.emplace(ctx, zmq::socket_type::sub);
+    socket->set(zmq::sockopt::linger, 0);
+    if (keyed && curve) client::apply_curve(*socket, *curve);
+    socket->set(zmq::sockopt::rcvhwm, hwm);
+    socket->set(zmq::sockopt::subscribe, "");
+    socket->connect(endpoint);
+  };
   try {
-    if (!o.frames_from.empty()) {
-      frames.emplace(ctx, zmq::socket_type::sub);
-      frames->set(zmq::sockopt::linger, 0);
-      frames->set(zmq::sockopt::rcvhwm, 1000);
-      frames->set(zmq::sockopt::subscribe, "");
-      frames->connect(o.frames_from);
-    }
-    if (!o.measurements_from.empty()) {
-      measurements.emplace(ctx, zmq::socket_type::sub);
-      measurements->set(zmq::sockopt::linger, 0);
-      if (curve) client::apply_curve(*measurements, *curve);
-      measurements->set(zmq::sockopt::rcvhwm, 10000);
-      measurements->set(zmq::sockopt::subscribe, "");
-      measurements->connect(o.measurements_from);
-    }
-    if (!o.truth_from.empty()) {
-      truths.emplace(ctx, zmq::socket_type::sub);
-      truths->set(zmq::sockopt::linger, 0);
-      truths->set(zmq::sockopt::rcvhwm, 10000);
-      truths->set(zmq::sockopt::subscribe, "");
-      truths->connect(o.truth_from);
-    }
+    subscribe(frames, o.frames_from, 1000, false);
+    subscribe(measurements, o.measurements_from, 10000, true);  // the daemon's endpoint: CURVE when configured
+    subscribe(truths, o.truth_from, 10000, false);
   } catch (const zmq::error_t& e) {
     return fail(kCmd, fmt::format("cannot connect: {}", e.what()));
   }

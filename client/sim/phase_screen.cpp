@@ -29,6 +29,18 @@ namespace {
 // Frequency of FFT index k on an N grid, in units of df.
 double fft_index_frequency(int k, int n) { return k <= n / 2 ? k : k - n; }
 
+// The subharmonic components in the order they are drawn: fn(fx, fy,
+// cell) for the eight cells of each level around the origin.
+template <typename Fn>
+void for_each_subharmonic(const PhaseScreenSettings& s, double df, Fn&& fn) {
+  for (int p = 1; p <= s.subharmonic_levels; ++p) {
+    const double dfp = df / std::pow(3.0, p);
+    for (int my = -1; my <= 1; ++my)
+      for (int mx = -1; mx <= 1; ++mx)
+        if (mx != 0 || my != 0) fn(mx * dfp, my * dfp, dfp);
+  }
+}
+
 }  // namespace
 
 std::vector<double> make_phase_screen(const PhaseScreenSettings& s, std::mt19937_64& rng) {
@@ -57,30 +69,24 @@ std::vector<double> make_phase_screen(const PhaseScreenSettings& s, std::mt19937
   if (s.subharmonic_levels > 0) {
     std::vector<double> low(screen.size(), 0.0);
     std::vector<double> cx(n), sx(n), cy(n), sy(n);
-    for (int p = 1; p <= s.subharmonic_levels; ++p) {
-      const double dfp = df / std::pow(3.0, p);
-      for (int my = -1; my <= 1; ++my)
-        for (int mx = -1; mx <= 1; ++mx) {
-          if (mx == 0 && my == 0) continue;
-          const double fx = mx * dfp, fy = my * dfp;
-          const double a = std::sqrt(von_karman_psd(std::hypot(fx, fy), s.r0_m, s.outer_scale_m)) * dfp;
-          const double re = gauss(rng) * a, im = gauss(rng) * a;
-          // Re((re + i im) exp(i(ax + by))) = re cos(ax+by) - im sin(ax+by),
-          // separated in x and y so that no cos is taken per pixel.
-          for (int i = 0; i < n; ++i) {
-            cx[i] = std::cos(2 * pi * fx * i * s.dx_m);
-            sx[i] = std::sin(2 * pi * fx * i * s.dx_m);
-            cy[i] = std::cos(2 * pi * fy * i * s.dx_m);
-            sy[i] = std::sin(2 * pi * fy * i * s.dx_m);
-          }
-          for (int y = 0; y < n; ++y)
-            for (int x = 0; x < n; ++x) {
-              const double c = cx[x] * cy[y] - sx[x] * sy[y];
-              const double sn = sx[x] * cy[y] + cx[x] * sy[y];
-              low[static_cast<std::size_t>(y) * n + x] += re * c - im * sn;
-            }
+    for_each_subharmonic(s, df, [&](double fx, double fy, double dfp) {
+      const double a = std::sqrt(von_karman_psd(std::hypot(fx, fy), s.r0_m, s.outer_scale_m)) * dfp;
+      const double re = gauss(rng) * a, im = gauss(rng) * a;
+      // Re((re + i im) exp(i(ax + by))) = re cos(ax+by) - im sin(ax+by),
+      // separated in x and y so that no cos is taken per pixel.
+      for (int i = 0; i < n; ++i) {
+        cx[i] = std::cos(2 * pi * fx * i * s.dx_m);
+        sx[i] = std::sin(2 * pi * fx * i * s.dx_m);
+        cy[i] = std::cos(2 * pi * fy * i * s.dx_m);
+        sy[i] = std::sin(2 * pi * fy * i * s.dx_m);
+      }
+      for (int y = 0; y < n; ++y)
+        for (int x = 0; x < n; ++x) {
+          const double c = cx[x] * cy[y] - sx[x] * sy[y];
+          const double sn = sx[x] * cy[y] + cx[x] * sy[y];
+          low[static_cast<std::size_t>(y) * n + x] += re * c - im * sn;
         }
-    }
+    });
     double mean = 0.0;
     for (double v : low) mean += v;
     mean /= static_cast<double>(low.size());
@@ -102,16 +108,10 @@ double sampled_structure_function(const PhaseScreenSettings& s, double r) {
              (1.0 - std::cos(2 * pi * fx * r * s.dx_m));
     }
   }
-  for (int p = 1; p <= s.subharmonic_levels; ++p) {
-    const double dfp = df / std::pow(3.0, p);
-    for (int my = -1; my <= 1; ++my)
-      for (int mx = -1; mx <= 1; ++mx) {
-        if (mx == 0 && my == 0) continue;
-        const double fx = mx * dfp, fy = my * dfp;
-        sum += von_karman_psd(std::hypot(fx, fy), s.r0_m, s.outer_scale_m) * dfp * dfp *
-               (1.0 - std::cos(2 * pi * fx * r * s.dx_m));
-      }
-  }
+  for_each_subharmonic(s, df, [&](double fx, double fy, double dfp) {
+    sum += von_karman_psd(std::hypot(fx, fy), s.r0_m, s.outer_scale_m) * dfp * dfp *
+           (1.0 - std::cos(2 * pi * fx * r * s.dx_m));
+  });
   // The mean removed from the subharmonic part changes the covariance of
   // two points only by terms that cancel in their difference.
   return 2.0 * sum;
