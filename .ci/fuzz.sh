@@ -12,7 +12,7 @@ cd "$(dirname "$0")/.."
 seconds="${1:-20}"
 shift || true
 targets=("$@")
-if ((${#targets[@]} == 0)); then targets=(frame_fuzz control_fuzz config_fuzz fits_fuzz layout_fuzz); fi
+if ((${#targets[@]} == 0)); then targets=(frame_fuzz control_fuzz config_fuzz fits_fuzz layout_fuzz recording_fuzz); fi
 CC=clang CXX=clang++ cmake -S . -B build-fuzz -DCMAKE_BUILD_TYPE=RelWithDebInfo -DSLOPECAST_FUZZ=ON \
   -DSLOPECAST_BUILD_TESTS=OFF -DSLOPECAST_BUILD_BENCH=OFF >/dev/null
 cmake --build build-fuzz -j"$(nproc)" --target "${targets[@]}"
