@@ -45,7 +45,8 @@ int main(int argc, char** argv) {
   sigaction(SIGINT, &sa, nullptr);
   sigaction(SIGTERM, &sa, nullptr);
   set_invocation(argc, argv);
-  CLI::App app{"slopecast: simulate a lenslet camera, watch, query and calibrate slopecastd."};
+  CLI::App app{"slopecast: simulate a lenslet camera; watch, query and calibrate slopecastd; record, replay and "
+               "export streams."};
   app.require_subcommand(1);
   add_sim_command(app);
   add_watch_command(app);

@@ -182,8 +182,12 @@ void run_replay(ReplayOptions o) {
                                           o.source_id, o.inputs[0]);
     if (o.rate_hz == 0 && !o.flow) o.rate_hz = 100;
   } else {
-    for (const auto& in : o.inputs)
+    for (const auto& in : o.inputs) {
       if (is_fits(in)) return fail(kCmd, fmt::format("'{}' is a FITS file: replay one cube at a time", in));
+      // Every file must open before the first frame goes out.
+      auto opened = client::RecordingReader::open(in);
+      if (auto* e = std::get_if<std::string>(&opened)) return fail(kCmd, *e);
+    }
     source = std::make_unique<RecordingSource>(o.inputs);
   }
   const bool renumber = o.renumber || o.loops != 1;
@@ -345,6 +349,10 @@ void run_replay(ReplayOptions o) {
                                   : "",
                            stop_requested() ? "; stopped by a signal" : "");
   if (auto* c = dynamic_cast<CubeSource*>(source.get()); c && c->error()) exit_code() = 2;
+  if (auto* r = dynamic_cast<RecordingSource*>(source.get()); r && r->problems()) {
+    std::cout << fmt::format("{} damaged or torn record(s) skipped (warnings above)\n", r->problems());
+    exit_code() = 1;
+  }
   if (unanswered) exit_code() = 1;
   if (stop_requested()) exit_code() = stopped_exit_code();
 }

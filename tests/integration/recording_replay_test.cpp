@@ -407,3 +407,51 @@ TEST_CASE("a long recording rotates into numbered files that read back as one st
   CHECK(parts == 3);
   CHECK(records == 150);
 }
+
+TEST_CASE("bad scenarios, recordings and cubes are refused with a sentence and nothing is overwritten",
+          "[integration][recording][cli]") {
+  testing::TempDir dir;
+  struct Bad {
+    std::string file, text;
+    std::vector<std::string> args;
+    std::string says;
+  };
+  const std::vector<Bad> cases = {
+      {"typo.toml", "[atmosphere]\nr0 = 0.1\n", {"sim", "--scenario"}, "[atmosphere] has an unknown key 'r0'"},
+      {"table.toml", "[weather]\nr0_m = 0.1\n", {"sim", "--scenario"}, "unknown table or key 'weather'"},
+      {"layer.toml", "[layer]\nfraction = 1\n", {"sim", "--scenario"}, "layers are written [[layer]]"},
+      {"coarse.toml", "[optics]\nsamples_per_subaperture = 4\n", {"sim", "--scenario"}, "use more samples"},
+      {"not_a_recording.screc", "hello", {"replay", "--frames-out", "ipc:///tmp/x", "--wait-subscriber-s", "0"},
+       "not a slopecast recording"},
+      {"cube.fits", std::string("SIMPLE  =                    T") + std::string(2850, ' '), {"replay"},
+       "cannot read FITS cube"},
+  };
+  int k = 0;
+  for (const auto& c : cases) {
+    std::ofstream(dir / c.file) << c.text;
+    std::vector<std::string> args = c.args;
+    if (args[0] == "sim") {
+      args.push_back((dir / c.file).string());
+      args.insert(args.end(), kGrid.begin(), kGrid.end());
+    } else {
+      args.insert(args.begin() + 1, (dir / c.file).string());
+    }
+    const auto log = dir / ("run" + std::to_string(k++) + ".log");
+    testing::ChildProcess p(SLOPECAST_PATH, args, log);
+    const auto rc = p.wait(20s);
+    const std::string text = testing::read_log(log);
+    INFO(c.file << ": " << text);
+    CHECK(rc.has_value());
+    CHECK(rc != 0);
+    CHECK_THAT(text, Catch::Contains(c.says));
+    CHECK_THAT(text, !Catch::Contains("terminate called"));
+  }
+  // record and export refuse to write over an existing file.
+  std::ofstream(dir / "keep.screc") << "precious";
+  testing::ChildProcess rec(SLOPECAST_PATH, {"record", "--frames-from", "ipc:///tmp/none", "--out",
+                                              (dir / "keep.screc").string()},
+                            dir / "rec.log");
+  CHECK(rec.wait(10s) == 2);
+  CHECK_THAT(testing::read_log(dir / "rec.log"), Catch::Contains("never overwritten"));
+  CHECK(testing::read_log(dir / "keep.screc") == "precious");
+}
