@@ -6,6 +6,8 @@
 #include <fmt/format.h>
 #include <opencv2/core.hpp>
 
+#include "daemon/core/modal/turbulence_statistics.h"
+
 namespace slopecast::sim {
 
 using std::numbers::pi;
@@ -20,9 +22,7 @@ std::string validate(const PhaseScreenSettings& s) {
   return {};
 }
 
-double von_karman_psd(double f, double r0, double L0) {
-  return 0.023 * std::pow(r0, -5.0 / 3.0) * std::pow(f * f + 1.0 / (L0 * L0), -11.0 / 6.0);
-}
+double von_karman_psd(double f, double r0, double L0) { return core::von_karman_psd(f, r0, L0); }
 
 namespace {
 

@@ -39,7 +39,8 @@ struct PhaseScreenSettings {
 
 std::string validate(const PhaseScreenSettings& s);
 
-// Phi(f) above, rad^2 m^2.
+// Phi(f) above, rad^2 m^2 (core::von_karman_psd: one definition for the
+// simulator and the estimators).
 double von_karman_psd(double f_per_m, double r0_m, double outer_scale_m);
 
 // One screen, rad, row-major (index y * N + x).

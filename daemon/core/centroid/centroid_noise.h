@@ -1,0 +1,36 @@
+// The noise a centroid carries, from photon, background and read noise:
+// the published formulas behind our noise tests (tests/REFERENCES.md R1,
+// R6), evaluated per subaperture from what the pipeline measured.
+//
+//   CoG, pixel-integrated Gaussian spot of rms sigma_s, N photo-electrons,
+//   an n x n box, read noise sigma_e and background b e-/px (after its
+//   subtraction, b adds like read noise):
+//     var = (sigma_s^2 + 1/12) / N + (sigma_e^2 + b) n^2 (n^2 - 1) / (12 N^2)
+//   (Rousset 1999 for the two terms; the 1/12 is the pixel's own spread).
+//
+//   Weighted CoG, Gaussian weight of rms sigma_w, after its gain correction
+//   (Thomas et al. 2006, in our derived form; s2 = sigma_s^2 + 1/12):
+//     var = (s2 / N)(s2 + sigma_w^2)^4 / (sigma_w^4 (2 s2 + sigma_w^2)^2)
+//         + pi (sigma_e^2 + b)(s2 + sigma_w^2)^4 / (2 N^2 sigma_w^4)
+//
+// Both per axis, px^2. The other methods have no model here (NaN): their
+// noise is published from the slopes' own statistics only.
+#pragma once
+
+#include "daemon/core/centroid/centroider_settings.h"
+
+namespace slopecast::core {
+
+struct SpotNoiseInputs {
+  double photons_e = 0;           // the spot's flux, e- (flux_adu x gain)
+  double background_e_per_px = 0; // e- per pixel removed as background (or sky) before centroiding
+  double read_noise_e = 0;        // per pixel, rms
+  double spot_sigma_px = 1;       // the spot's rms width (continuum, without the pixel's 1/12)
+  int box_px = 0;                 // box side, px
+};
+
+// Model variance of one slope, px^2; NaN when the method has no model or
+// the flux is not positive.
+double centroid_noise_variance(const CentroiderSettings& method, const SpotNoiseInputs& in);
+
+}  // namespace slopecast::core
