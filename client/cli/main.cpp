@@ -59,6 +59,7 @@ int main(int argc, char** argv) {
   add_record_command(app);
   add_replay_command(app);
   add_export_command(app);
+  add_snap_command(app);
   CLI11_PARSE(app, argc, argv);
   if (stop_requested() && exit_code() == 0) exit_code() = stopped_exit_code();
   return exit_code();

@@ -1,5 +1,6 @@
 // `slopecast watch`: subscribe to measurements and print a compact live view,
 // one line per interval, and a closing summary.
+#include <cmath>
 #include <iostream>
 #include <memory>
 
@@ -7,8 +8,11 @@
 #include <zmq.hpp>
 
 #include "client/cli/commands.h"
+#include "client/lib/flag_letters.h"
+#include "client/lib/insight_subscriber.h"
 #include "client/lib/measurement_subscriber.h"
 #include "client/lib/measurement_tally.h"
+#include "slopecast/v1/insight.pb.h"
 
 namespace slopecast::cli {
 
@@ -24,7 +28,81 @@ struct WatchOptions {
   std::uint64_t count = 0;   // 0: no limit
   double interval_s = 1.0;
   double idle_timeout_s = 0.0;  // 0: wait forever for the first/next measurement
+  std::string insight;          // the daemon's insight_out ("" : none)
+  bool map = false;
 };
+
+// The latest insight reports seen.
+struct InsightView {
+  std::optional<v1::ModesReport> modes;
+  std::optional<v1::TurbulenceReport> turbulence;
+  std::optional<v1::ShadowReport> shadow;
+  void take(const client::InsightMessage& m) {
+    if (m.topic == "modes") modes.emplace().ParseFromString(m.payload);
+    if (m.topic == "turbulence") turbulence.emplace().ParseFromString(m.payload);
+    if (m.topic == "shadow") shadow.emplace().ParseFromString(m.payload);
+  }
+  std::string r0_text() const {
+    if (!turbulence) return "r0: no report yet";
+    const auto& t = *turbulence;
+    if (!t.refused().empty()) return "r0: refused (" + t.refused() + ")";
+    std::string out = fmt::format("r0 {:.1f} cm at 500 nm (seeing {:.2f}\"), from {} frames, {} pairs",
+                                  100 * t.r0_500nm_m(), t.seeing_500nm_arcsec(), t.window_frames(), t.pairs());
+    if (t.sensing_wavelength_nm() > 0)
+      out += fmt::format("; at {:.0f} nm {:.1f} cm ({:.2f}\")", t.sensing_wavelength_nm(), 100 * t.r0_sensing_m(),
+                         t.seeing_sensing_arcsec());
+    if (t.r0_zernike_500nm_m() > 0) out += fmt::format("; from Zernike variances {:.1f} cm", 100 * t.r0_zernike_500nm_m());
+    return out;
+  }
+  std::string modes_text(int leading = 6) const {
+    if (!modes) return "modes: no report yet";
+    const auto& m = *modes;
+    if (!m.refused().empty()) return "modes: refused (" + m.refused() + ")";
+    std::string out = "Zernike (nm rms)";
+    for (int k = 0; k < m.coefficients_nm_size() && k < leading; ++k)
+      out += fmt::format(" Z{} {:+.0f}", k + 2, m.coefficients_nm(k));
+    out += fmt::format("; wavefront {:.0f} nm rms, {:.0f} without tip/tilt", m.wavefront_rms_nm(),
+                       m.wavefront_rms_no_tilt_nm());
+    if (m.strehl_wavelength_nm() > 0) out += fmt::format("; Strehl {:.2f} at {:.0f} nm", m.strehl(), m.strehl_wavelength_nm());
+    return out;
+  }
+};
+
+// One row of two characters per subaperture: the flux's level and either
+// the slope's direction or why the subaperture is not valid.
+std::string subaperture_map(const v1::Measurement& m) {
+  const int nx = static_cast<int>(m.n_subap_x()), ny = static_cast<int>(m.n_subap_y());
+  if (nx * ny != m.slope_x_size() || m.flux_adu_size() != m.slope_x_size()) return "(map: measurement incomplete)\n";
+  float top = 0;
+  for (float f : m.flux_adu()) top = std::max(top, f);
+  static const char* kLevels = " .:*#";
+  std::string out;
+  for (int iy = 0; iy < ny; ++iy) {
+    out += "  ";
+    for (int ix = 0; ix < nx; ++ix) {
+      const int i = iy * nx + ix;
+      const float f = m.flux_adu(i);
+      out += top > 0 && f > 0 ? kLevels[std::min(4, static_cast<int>(5 * f / top))] : ' ';
+      const std::uint32_t flags = m.flags_size() > i ? m.flags(i) : 0;
+      if (flags) {
+        out += client::flag_letter(flags);
+        continue;
+      }
+      const double sx = m.slope_x(i) / (m.units_per_px() > 0 ? m.units_per_px() : 1.0);
+      const double sy = m.slope_y(i) / (m.units_per_px() > 0 ? m.units_per_px() : 1.0);
+      if (std::hypot(sx, sy) < 0.25) {
+        out += 'o';
+        continue;
+      }
+      // Eight directions; +y is down the image.
+      static const char* kArrows = ">\\v/<\\^/";
+      const int dir = static_cast<int>(std::lround(std::atan2(sy, sx) / (M_PI / 4))) & 7;
+      out += kArrows[dir];
+    }
+    out += "\n";
+  }
+  return out;
+}
 
 void print_summary(const client::TallySummary& s) {
   std::cout << fmt::format(
@@ -42,12 +120,21 @@ void run_watch(WatchOptions o) {
     auto c = read_daemon_config(kCmd, o.config);
     if (!c) return;
     o.measurements = c->endpoints.measurements_out;
+    if (c->insight.enabled && o.insight.empty()) o.insight = c->endpoints.insight_out;
   }
   if (!endpoint_ok(kCmd, "--measurements", o.measurements)) return;
   zmq::context_t ctx(1);
   std::optional<client::CurveClient> curve;
   if (!load_keys(kCmd, o.keys, curve)) return;
   client::MeasurementSubscriber sub(ctx, o.measurements, curve);
+  std::unique_ptr<client::InsightSubscriber> insight;
+  if (!o.insight.empty()) {
+    if (!endpoint_ok(kCmd, "--insight", o.insight)) return;
+    insight = std::make_unique<client::InsightSubscriber>(ctx, o.insight,
+                                                          std::vector<std::string>{"modes", "turbulence", "shadow"}, curve);
+  }
+  InsightView view;
+  std::optional<v1::Measurement> latest;
   client::MeasurementTally total, interval;
   using clock = std::chrono::steady_clock;
   const auto start = clock::now();
@@ -65,12 +152,18 @@ void run_watch(WatchOptions o) {
       break;
     }
     if (now >= next_line) {
-      std::cout << format_tally_line(interval.summary()) << "\n" << std::flush;
+      std::cout << format_tally_line(interval.summary()) << "\n";
+      if (insight) std::cout << "    " << view.r0_text() << "\n    " << view.modes_text() << "\n";
+      if (o.map && latest) std::cout << subaperture_map(*latest);
+      std::cout << std::flush;
       interval.clear();
       next_line += std::chrono::duration_cast<clock::duration>(std::chrono::duration<double>(o.interval_s));
     }
+    if (insight)
+      while (auto r = insight->receive(std::chrono::milliseconds(0))) view.take(*r);
     auto m = sub.receive(std::chrono::milliseconds(50));
     if (!m) continue;
+    if (o.map) latest = *m;
     const std::uint64_t t = client::wall_clock_ns();
     last_seen = clock::now();
     total.add(*m, t);
@@ -78,6 +171,12 @@ void run_watch(WatchOptions o) {
   }
   if (stop_requested()) std::cout << "stopped by a signal\n";
   print_summary(total.summary());
+  if (insight) {
+    std::cout << "  " << view.r0_text() << "\n  " << view.modes_text() << "\n";
+    if (view.shadow)
+      std::cout << fmt::format("  shadow {}: shadow - live {:.4f} px rms over {} frames\n", view.shadow->centroider(),
+                               view.shadow->overall_rms_px(), view.shadow->window_frames());
+  }
   if (sub.malformed() > 0) std::cout << "  malformed messages skipped: " << sub.malformed() << "\n";
   if (total.count() == 0 && exit_code() == 0 && !stop_requested()) {
     std::cerr << "slopecast watch: received no measurement\n";
@@ -104,6 +203,13 @@ void add_watch_command(CLI::App& app) {
   cmd->add_option("--idle-timeout-s", opts->idle_timeout_s,
                   "Fail if no measurement arrives for this many seconds (0: wait forever)")
       ->check(CLI::NonNegativeNumber);
+  cmd->add_option("--insight", opts->insight,
+                  "Also follow the daemon's insight reports on this endpoint (r0, seeing, Zernike terms, shadow); "
+                  "taken from --config when its [insight] is enabled");
+  cmd->add_flag("--map", opts->map,
+                "Print a map of the subapertures with each line: two characters each, the flux level ( .:*# from "
+                "dark to the brightest) then the slope's direction (> v < ^ and diagonals \\ / for 0.25 px and "
+                "more, o below) or, for an invalid subaperture, why: " + client::flag_legend());
   add_key_options(cmd, opts->keys);
   cmd->callback([opts] { run_watch(*opts); });
 }

@@ -122,6 +122,31 @@ Daemon::Daemon(io::DaemonConfig config)
     spdlog::error("cannot bind control '{}': {}", config_.endpoints.control, e.what());
     throw;
   }
+  if (config_.insight.enabled) {
+    zmq::socket_t insight(ctx_, zmq::socket_type::pub);
+    insight.set(zmq::sockopt::linger, 0);
+    insight.set(zmq::sockopt::sndhwm, 100);
+    insight.set(zmq::sockopt::maxmsgsize, std::int64_t{kMaxSubscriptionBytes});
+    if (config_.curve) {
+      insight.set(zmq::sockopt::curve_server, 1);
+      insight.set(zmq::sockopt::curve_secretkey, config_.server_keys.secret_z85);
+      insight.set(zmq::sockopt::zap_domain, "slopecast");
+    } else if (io::reachable_off_host(config_.endpoints.insight_out)) {
+      spdlog::warn("binding {} is reachable from other hosts without access control", config_.endpoints.insight_out);
+    }
+    try {
+      insight.bind(config_.endpoints.insight_out);
+    } catch (const zmq::error_t& e) {
+      spdlog::error("cannot bind insight_out '{}': {}", config_.endpoints.insight_out, e.what());
+      throw;
+    }
+    insight_ = std::make_unique<InsightWorker>(std::move(insight), config_, pipeline_);
+    spdlog::info("insight on {}: reports at {} Hz over {} frames{}{}", config_.endpoints.insight_out,
+                 config_.insight.report_rate_hz, config_.insight.window_frames,
+                 config_.insight.shadow ? ", shadow " + core::describe(config_.insight.shadow_centroider) : "",
+                 config_.insight.preview_rate_hz > 0 ? fmt::format(", previews at {} Hz", config_.insight.preview_rate_hz)
+                                                     : "");
+  }
   frames_.set(zmq::sockopt::rcvhwm, config_.frame_queue_depth);
   // A part larger than this is never buffered: ZeroMQ drops the connection
   // instead, which the monitor below turns into a count and a reconnect.
@@ -336,6 +361,9 @@ void Daemon::handle_frame(zmq::message_t& header, zmq::message_t* payload, bool 
   out_msg_.SerializeWithCachedSizesToArray(static_cast<std::uint8_t*>(out.data()));
   if (measurements_.send(out, zmq::send_flags::dontwait)) ++stats_.measurements_published;
   stats_.record_latency_us(micros(std::chrono::steady_clock::now() - t_received));
+  // After the measurement is out (and its latency taken): the insight
+  // thread gets a copy, or counts a skip; it never makes the loop wait.
+  if (insight_) insight_->offer(measurement_, *checked.image, header_scratch_.seq(), out_msg_);
   // After the measurement is out: a running acquisition takes the frame.
   if (calibration_.running() &&
       calibration_.feed(*checked.image, measurement_, header_scratch_.exposure_us(), settings_generation_)) {
@@ -349,6 +377,7 @@ void Daemon::handle_frame(zmq::message_t& header, zmq::message_t* payload, bool 
 
 void Daemon::apply_settings(core::PipelineSettings next, const std::string& why) {
   pipeline_ = core::Pipeline(std::move(next), config_.worker_threads);
+  if (insight_) insight_->reconfigure(pipeline_);
   measurement_ = pipeline_.make_measurement();
   // The last frame was measured under the old settings (perhaps another
   // grid): it cannot serve a reference capture any more.
@@ -521,6 +550,11 @@ void Daemon::fill_status(v1::StatusReply& s) {
   s.set_newest_frame_only(config_.newest_frame_only);
   s.set_access_control(config_.curve);
   s.set_connections_refused(connections_refused_);
+  if (insight_) {
+    s.set_insight_frames_analysed(insight_->frames_analysed());
+    s.set_insight_frames_skipped(insight_->frames_skipped());
+    s.set_shadow_frames(insight_->shadow_frames());
+  }
   const auto now = std::chrono::steady_clock::now();
   v1::StreamState state = v1::STREAM_STATE_WAITING;
   if (stats_.has_last_seq) {
@@ -599,6 +633,7 @@ void Daemon::set_centroider(const v1::SetCentroiderRequest& req, v1::ControlRepl
     // Built here, between two frames: the frame after this request is the
     // first measured with the new settings.
     pipeline_ = core::Pipeline(std::move(settings), config_.worker_threads);
+    if (insight_) insight_->reconfigure(pipeline_);
     ++settings_generation_;
     spdlog::info("centroider now {} (settings generation {})", core::describe(pipeline_.settings().centroider),
                  settings_generation_);

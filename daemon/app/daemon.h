@@ -39,6 +39,7 @@
 
 #include "daemon/app/calibration_session.h"
 #include "daemon/app/daemon_stats.h"
+#include "daemon/app/insight_worker.h"
 #include "daemon/app/row_workers.h"
 #include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/daemon_config.h"
@@ -131,6 +132,8 @@ class Daemon {
   zmq::socket_t control_;
   zmq::socket_t frames_monitor_;  // PAIR receiving frames_' connection events
   zmq::socket_t zap_;             // REP on inproc://zeromq.zap.01 when [security] is on
+  // [insight]: the analysis thread and its PUB socket (none when off).
+  std::unique_ptr<InsightWorker> insight_;
   std::uint64_t connections_refused_ = 0;
   zmq::message_t header_msg_, payload_msg_, extra_msg_;
 };

@@ -18,7 +18,7 @@ namespace slopecast::io {
 namespace {
 
 const std::set<std::string> kTables = {"endpoints", "camera", "lenslet_grid", "calibration", "centroider",
-                                       "optics", "security", "daemon"};
+                                       "optics", "security", "daemon", "insight", "shadow"};
 
 std::filesystem::path resolve(const std::filesystem::path& base_dir, const std::string& name) {
   std::filesystem::path path(name);
@@ -73,14 +73,18 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   ep.string("frames_in", c.endpoints.frames_in);
   ep.string("measurements_out", c.endpoints.measurements_out);
   ep.string("control", c.endpoints.control);
+  ep.string("insight_out", c.endpoints.insight_out);
   ep.reject_unknown();
   if (!ep.error.empty()) return fail(ep.error);
   const Endpoints& eps = c.endpoints;
   for (const auto& [key, e] : {std::pair{"frames_in", &eps.frames_in}, std::pair{"measurements_out", &eps.measurements_out},
-                               std::pair{"control", &eps.control}}) {
+                               std::pair{"control", &eps.control}, std::pair{"insight_out", &eps.insight_out}}) {
     if (auto err = validate_endpoint(*e); !err.empty()) return fail(fmt::format("[endpoints] {}: {}", key, err));
     for (auto& w : endpoint_warnings(*e)) c.warnings.push_back(fmt::format("[endpoints] {}: {}", key, w));
   }
+  if (eps.insight_out == eps.control || eps.insight_out == eps.measurements_out)
+    return fail(fmt::format("[endpoints] insight_out '{}' is also measurements_out or control; the daemon binds each, "
+                            "so they must differ", eps.insight_out));
   if (eps.measurements_out == eps.control)
     return fail(fmt::format("[endpoints] measurements_out and control are both '{}'; the daemon binds each, "
                             "so they must differ", eps.control));
@@ -199,6 +203,36 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
     }
   }
 
+  {
+    InsightSettings& in = c.insight;
+    TableReader r(table("insight"), "insight");
+    r.boolean("enabled", in.enabled);
+    r.number("report_rate_hz", in.report_rate_hz, 0.01);
+    r.integer("window_frames", in.window_frames, 10, 100000);
+    r.integer("zernike_max_noll", in.zernike_max_noll, 3, 66);
+    r.number("telescope_diameter_m", in.telescope_diameter_m, 0.0);
+    r.number("outer_scale_m", in.outer_scale_m, 0.01);
+    r.number("sensing_wavelength_nm", in.sensing_wavelength_nm, 0.0);
+    r.number("strehl_wavelength_nm", in.strehl_wavelength_nm, 0.0);
+    r.number("read_noise_e", in.read_noise_e, 0.0);
+    r.number("gain_e_per_adu", in.gain_e_per_adu, 1e-6);
+    r.boolean("loop_closed", in.loop_closed);
+    r.number("preview_rate_hz", in.preview_rate_hz, 0.0);
+    r.integer("preview_max_side_px", in.preview_max_side_px, 16, 4096);
+    r.reject_unknown();
+    if (!r.error.empty()) return fail(r.error);
+    if (in.report_rate_hz > 1000) return fail("[insight] report_rate_hz must be at most 1000");
+    if (in.preview_rate_hz > 100) return fail("[insight] preview_rate_hz must be at most 100");
+    if (const auto* sh = table("shadow")) {
+      in.shadow = true;
+      if (auto err = read_centroider(sh, in.shadow_centroider); !err.empty())
+        return fail("[shadow] " + err.substr(err.find(']') + 2));
+      if (in.shadow_centroider.reference != core::ReferenceSource::kGaussian)
+        return fail("[shadow] reference: the shadow centroider takes the synthetic (Gaussian) reference only");
+    }
+    if (!in.enabled && in.shadow) c.warnings.push_back("[shadow] is set but [insight] enabled is false: no shadow runs");
+  }
+
   TableReader d(table("daemon"), "daemon");
   d.integer("frame_queue_depth", c.frame_queue_depth, 1, 10000);
   d.integer("measurement_queue_depth", c.measurement_queue_depth, 1, 100000);
@@ -301,6 +335,7 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
       return fail(fmt::format("[calibration] pupil_min_area_fraction must be 0 < f <= 1, got {}", pupil_fraction));
     const auto boxes = p.layout.empty() ? core::regular_layout(p.grid) : p.layout;
     p.valid_map = core::combine_maps(p.valid_map, core::valid_from_pupil(boxes, pupil, pupil_fraction));
+    c.pupil = pupil;
   } else if (pupil.obstruction > 0.0 || pupil.centre_x_px != 0.0 || pupil.centre_y_px != 0.0) {
     return fail("[calibration] a pupil needs pupil_diameter_px (with pupil_centre_x_px, pupil_centre_y_px and "
                 "optionally pupil_obstruction)");

@@ -15,6 +15,7 @@
 #include <vector>
 
 #include "daemon/core/calibration/slope_units.h"
+#include "daemon/core/calibration/valid_map.h"
 #include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/calibration_set.h"
 #include "daemon/io/curve_keys.h"
@@ -30,6 +31,29 @@ struct Endpoints {
   std::string measurements_out = kDefaultMeasurementsEndpoint;
   // Control request/reply; the daemon binds.
   std::string control = kDefaultControlEndpoint;
+  // Insight reports (modes, turbulence, noise, shadow, preview); the daemon
+  // binds it when [insight] enabled = true.
+  std::string insight_out = kDefaultInsightEndpoint;
+};
+
+// [insight] and [shadow]: what the daemon works out beside the hot path,
+// on its own thread (daemon/app/insight_worker.h).
+struct InsightSettings {
+  bool enabled = false;
+  double report_rate_hz = 2.0;       // modes, turbulence, noise and shadow reports per second
+  int window_frames = 1000;          // rolling window for r0, noise and shadow statistics
+  int zernike_max_noll = 15;         // modes j = 2..this
+  double telescope_diameter_m = 0;   // the pupil's diameter in the telescope; 0: no r0 (refused with the reason)
+  double outer_scale_m = 25;         // L0 assumed by the r0 estimators
+  double sensing_wavelength_nm = 0;  // for r0 and seeing at the sensing wavelength (0: 500 nm only)
+  double strehl_wavelength_nm = 0;   // Strehl estimate at this wavelength (0: none)
+  double read_noise_e = 3.0;         // the noise model's detector
+  double gain_e_per_adu = 1.0;
+  bool loop_closed = false;          // residual slopes: r0 refused
+  double preview_rate_hz = 1.0;      // preview frames per second (0: none)
+  int preview_max_side_px = 512;     // larger frames are binned down by a whole factor
+  bool shadow = false;               // a [shadow] table is present
+  core::CentroiderSettings shadow_centroider;
 };
 
 struct DaemonConfig {
@@ -92,6 +116,9 @@ struct DaemonConfig {
   // control requests (reference_file), are taken from here.
   std::filesystem::path base_dir;
   core::PipelineSettings pipeline;
+  InsightSettings insight;
+  // The pupil on the camera ([calibration] pupil_*), when given.
+  std::optional<core::PupilSpec> pupil;
   // Legal but probably wrong (no dark, a host that does not resolve, a
   // deaf frames endpoint ...): printed by --check-config, logged at start.
   std::vector<std::string> warnings;

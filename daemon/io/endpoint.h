@@ -17,6 +17,7 @@ namespace slopecast::io {
 inline constexpr const char* kDefaultFramesEndpoint = "tcp://127.0.0.1:10140";
 inline constexpr const char* kDefaultMeasurementsEndpoint = "tcp://127.0.0.1:10141";
 inline constexpr const char* kDefaultControlEndpoint = "tcp://127.0.0.1:10142";
+inline constexpr const char* kDefaultInsightEndpoint = "tcp://127.0.0.1:10143";
 
 // Empty when endpoint is well formed; otherwise a sentence naming it.
 std::string validate_endpoint(const std::string& endpoint);

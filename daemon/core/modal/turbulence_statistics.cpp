@@ -131,6 +131,25 @@ void DifferentialMotion::add(std::span<const double> ox, std::span<const double>
   filled_ = std::min<long>(filled_ + 1, window_);
 }
 
+void DifferentialMotion::temporal_variance(std::span<double> vx, std::span<double> vy) const {
+  for (int i = 0; i < n_; ++i) {
+    double sx = 0, sy = 0, sx2 = 0, sy2 = 0;
+    long m = 0;
+    for (long f = 0; f < filled_; ++f) {
+      const std::size_t at = static_cast<std::size_t>(f) * n_ + i;
+      if (!valid_[at]) continue;
+      const double x = static_cast<double>(x_[at]) * d_, y = static_cast<double>(y_[at]) * d_;
+      sx += x;
+      sy += y;
+      sx2 += x * x;
+      sy2 += y * y;
+      ++m;
+    }
+    vx[i] = m > 1 ? (sx2 - sx * sx / m) / (m - 1) : 0.0;
+    vy[i] = m > 1 ? (sy2 - sy * sy / m) / (m - 1) : 0.0;
+  }
+}
+
 DifferentialR0 DifferentialMotion::estimate(double lambda, long min_frames, double noise_opd_m2) const {
   DifferentialR0 r;
   r.frames = filled_;

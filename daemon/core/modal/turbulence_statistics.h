@@ -85,6 +85,10 @@ class DifferentialMotion {
   void clear();
   long frames() const { return filled_; }
 
+  // Each subaperture's variance over the window (valid frames only), in
+  // the square of the unit given to add(); 0 with fewer than 2 frames.
+  void temporal_variance(std::span<double> var_x, std::span<double> var_y) const;
+
   // noise_opd_m2: the variance of one OPD measurement due to noise (m^2),
   // removed twice (two subapertures) from each difference; 0 to ignore.
   DifferentialR0 estimate(double reference_wavelength_m, long min_frames = 50, double noise_opd_m2 = 0) const;
