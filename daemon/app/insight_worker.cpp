@@ -110,10 +110,11 @@ void InsightWorker::rebuild(const Geometry& g) {
   auto opd = core::units_per_px(core::SlopeUnit::kNm, optics_);
   nm_per_px_ = std::holds_alternative<double>(opd) ? std::get<double>(opd) : 0.0;
   const core::PupilSpec pupil = pupil_of(pupil_config_, boxes);
-  // Which subapertures enter the fit and the pairs: the valid map's.
-  std::vector<std::uint8_t> used(n, 1);
+  // Which subapertures enter the fit and the pairs: those of the valid
+  // map that the pupil lights for at least half their area.
+  std::vector<std::uint8_t> used = core::valid_from_pupil(boxes, pupil, 0.5);
   if (!g.settings.valid_map.empty())
-    for (int i = 0; i < n; ++i) used[i] = g.settings.valid_map[i];
+    for (int i = 0; i < n; ++i) used[i] = used[i] && g.settings.valid_map[i];
   modes_refused_.clear();
   r0_refused_.clear();
   fit_.reset();

@@ -19,7 +19,7 @@ bool DaemonHarness::start(const std::string& body) {
                                          << "frames_in = \"" << frames_endpoint << "\"\n"
                                          << "measurements_out = \"" << measurements_endpoint << "\"\n"
                                          << "control = \"" << control_endpoint << "\"\n"
-                                         << body;
+                                         << endpoints_extra << body;
   daemon_ = std::make_unique<ChildProcess>(
       SLOPECASTD_PATH, std::vector<std::string>{"--config", (dir / "slopecastd.toml").string()},
       dir / "slopecastd.log");

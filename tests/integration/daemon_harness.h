@@ -29,6 +29,8 @@ class DaemonHarness {
   // Set before start() when the daemon runs with [security]: the harness's
   // own control client then uses these keys.
   std::optional<client::CurveClient> curve;
+  // More lines for [endpoints] (insight_out, say), written before body.
+  std::string endpoints_extra;
 
   // Writes slopecastd.toml: the three endpoints plus body (the [camera],
   // [lenslet_grid], ... tables), then starts the daemon and waits (up to
