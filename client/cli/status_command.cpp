@@ -51,6 +51,9 @@ void print_status(const v1::StatusReply& s) {
   if (c.acquisition().state() == v1::ACQUISITION_STATE_RUNNING)
     std::cout << fmt::format("  acquiring     {}: {} of {} frames\n", c.acquisition().kind_name(),
                              c.acquisition().frames_done(), c.acquisition().frames_wanted());
+  if (s.insight_frames_analysed() + s.insight_frames_skipped() > 0)
+    std::cout << fmt::format("  insight       analysed {}  skipped while busy {}  shadow measured {}\n",
+                             s.insight_frames_analysed(), s.insight_frames_skipped(), s.shadow_frames());
   std::cout << "  rejected by reason:";
   for (const auto& r : s.rejected()) std::cout << fmt::format(" {}={}", r.reason_name(), r.count());
   std::cout << "\n";
