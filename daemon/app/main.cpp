@@ -30,6 +30,7 @@ relative to the config file.
   frames_in        = "tcp://127.0.0.1:10140"  the camera binds PUB; the daemon connects
   measurements_out = "tcp://127.0.0.1:10141"  the daemon binds a PUB here
   control          = "tcp://127.0.0.1:10142"  the daemon binds a REP here
+  insight_out      = "tcp://127.0.0.1:10143"  with [insight] enabled: the daemon binds a PUB here
 
   [camera]                             every frame must match exactly
   width_px   = 240                     columns (x)
@@ -102,6 +103,28 @@ relative to the config file.
                                        (may change settings and calibration) or
                                        "read" (status and calibration show only);
                                        any other key is refused and counted
+
+  [insight]                            beside the loop, on a thread of its own: Zernike
+                                       modes, r0 and seeing, per-slope noise, shadow,
+                                       previews (topics on insight_out)
+  enabled               = false        true: run it (default false)
+  report_rate_hz        = 2.0          modes/turbulence/noise/shadow reports per second
+  window_frames         = 1000         rolling window for r0, noise, shadow (10..100000)
+  zernike_max_noll      = 15           modes j = 2..this (3..66)
+  telescope_diameter_m  = 1.2          the pupil's diameter in the telescope, m;
+                                       without it r0 is refused (default 0)
+  outer_scale_m         = 25.0         L0 the r0 estimators assume
+  sensing_wavelength_nm = 635          also give r0 and seeing at this wavelength (0: no)
+  strehl_wavelength_nm  = 1650         Strehl estimate at this wavelength (0: none)
+  read_noise_e          = 3.0          the noise model's read noise, e- rms
+  gain_e_per_adu        = 1.0          the noise model's gain
+  loop_closed           = false        true: slopes are loop residuals; r0 refused
+  preview_rate_hz       = 1.0          previews for `slopecast snap` (0: none)
+  preview_max_side_px   = 512          larger frames are binned down by a whole factor
+
+  [shadow]                             with [insight]: a second centroider on the same
+  method = "wcog"                      frames, off the hot path; the keys of
+                                       [centroider]; publishes shadow - live statistics
 
   [daemon]
   frame_queue_depth     = 4            frames queued before newer ones drop (default 4)
