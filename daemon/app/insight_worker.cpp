@@ -138,6 +138,12 @@ void InsightWorker::rebuild(const Geometry& g) {
   window_ = std::make_unique<core::DifferentialMotion>(boxes, used, d, settings_.outer_scale_m,
                                                        settings_.window_frames);
   coefficients_.assign(std::max(0, settings_.zernike_max_noll - 1), 0.0);
+  // Noll's expected variances (for D = r0) of the fitted modes, once.
+  zernike_variances_.assign(coefficients_.size(), 0.0);
+  if (settings_.telescope_diameter_m > 0)
+    for (std::size_t k = 2; k < coefficients_.size(); ++k)
+      zernike_variances_[k] =
+          core::zernike_variance_coefficient(static_cast<int>(k) + 2, settings_.outer_scale_m / settings_.telescope_diameter_m);
   coefficient_ring_.assign(static_cast<std::size_t>(settings_.window_frames) * coefficients_.size(), 0.0);
   coefficient_count_ = coefficient_next_ = 0;
   modes_seq_ = 0;
@@ -277,7 +283,7 @@ void InsightWorker::publish_reports(std::uint64_t seq) {
           }
           const double var = (sum2 - sum * sum / coefficient_count_) / (coefficient_count_ - 1);
           measured += var * to_rad * to_rad;
-          expected += core::zernike_variance_coefficient(k + 2, settings_.outer_scale_m / D);
+          expected += zernike_variances_[k];
         }
         if (measured > 0) r.set_r0_zernike_500nm_m(D * std::pow(expected / measured, 3.0 / 5.0));
         else r.set_zernike_refused("the modes did not vary over the window");

@@ -106,6 +106,7 @@ class InsightWorker {
   std::optional<core::ModalFit> fit_;
   std::unique_ptr<core::DifferentialMotion> window_;
   std::vector<double> coefficients_, coefficient_ring_;  // last fit; window x modes
+  std::vector<double> zernike_variances_;                // Noll's <a_j^2> for D = r0, per fitted mode
   long coefficient_count_ = 0, coefficient_next_ = 0;
   std::uint64_t modes_seq_ = 0;
   std::vector<float> shadow_ring_;                       // window x n x 2 (dx, dy), NaN where either invalid
