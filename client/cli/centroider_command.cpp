@@ -28,6 +28,7 @@ struct CentroiderOptions {
   std::string method;
   std::vector<std::string> set;
   bool capture_reference = false;
+  bool shadow = false, shadow_off = false;
   bool json = false;
   double timeout_s = 2.0;
 };
@@ -60,12 +61,24 @@ void run_centroider(CentroiderOptions o) {
     io::to_wire(kv->first, kv->second, *set->add_options());
   }
   set->set_capture_reference(o.capture_reference);
+  set->set_shadow(o.shadow);
+  set->set_shadow_off(o.shadow_off);
   const auto reply = call_daemon(kCmd, *connection, request, o.timeout_s, " (the running settings are unchanged)");
   if (!reply) return;
   const v1::CentroiderReply& c = reply->centroider();
   if (o.json) return print_json(kCmd, c);
-  std::cout << fmt::format("{} {}\n  settings generation {}{}\n", c.changed() ? "now" : "in force:", c.summary(),
-                           c.settings_generation(), c.changed() ? " (measurements from the next frame on)" : "");
+  if (o.shadow_off) {
+    std::cout << "shadow centroider stopped\n";
+    return;
+  }
+  if (o.shadow) {
+    std::cout << fmt::format("shadow {} {}\n  (beside the live centroider; its statistics are on the insight topic "
+                             "\"shadow\", and in `slopecast watch --config`)\n",
+                             c.changed() ? "now" : "in force:", c.summary());
+  } else {
+    std::cout << fmt::format("{} {}\n  settings generation {}{}\n", c.changed() ? "now" : "in force:", c.summary(),
+                             c.settings_generation(), c.changed() ? " (measurements from the next frame on)" : "");
+  }
   std::cout << "  every option:\n";
   for (const auto& opt : c.options()) {
     const auto value = io::from_wire(opt);
@@ -88,6 +101,10 @@ void add_centroider_command(CLI::App& app) {
   cmd->add_option("--set", opts->set, "key=value: change one option (repeat for several); see below");
   cmd->add_flag("--capture-reference", opts->capture_reference,
                 "Take the mean of the valid spots of the last measured frame as the correlation reference");
+  auto* shadow = cmd->add_flag("--shadow", opts->shadow,
+                                "Show or change the shadow centroider instead (run beside the live one on the same "
+                                "frames, off the hot path; needs [insight]): judge a method without switching it in");
+  cmd->add_flag("--shadow-off", opts->shadow_off, "Stop the shadow centroider")->excludes(shadow);
   cmd->add_flag("--json", opts->json, "Print the reply as JSON (field names as in control.proto)");
   cmd->add_option("--timeout-s", opts->timeout_s, "Seconds to wait for the reply")
       ->capture_default_str()->check(CLI::PositiveNumber);

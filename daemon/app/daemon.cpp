@@ -141,6 +141,7 @@ Daemon::Daemon(io::DaemonConfig config)
       throw;
     }
     insight_ = std::make_unique<InsightWorker>(std::move(insight), config_, pipeline_);
+    if (config_.insight.shadow) shadow_ = config_.insight.shadow_centroider;
     spdlog::info("insight on {}: reports at {} Hz over {} frames{}{}", config_.endpoints.insight_out,
                  config_.insight.report_rate_hz, config_.insight.window_frames,
                  config_.insight.shadow ? ", shadow " + core::describe(config_.insight.shadow_centroider) : "",
@@ -587,7 +588,42 @@ void Daemon::fill_status(v1::StatusReply& s) {
   describe_calibration(*s.mutable_calibration());
 }
 
+void Daemon::set_shadow(const v1::SetCentroiderRequest& req, v1::ControlReply& reply) {
+  if (!insight_) return reply.set_error("no shadow without [insight] enabled = true in the daemon's config");
+  if (req.capture_reference()) return reply.set_error("the shadow takes the synthetic correlation reference only");
+  if (req.shadow_off()) {
+    if (!shadow_.has_value()) return reply.set_error("no shadow centroider is running");
+    shadow_.reset();
+    insight_->set_shadow(std::nullopt);
+    spdlog::info("shadow centroider stopped");
+    reply.set_ok(true);
+    return;
+  }
+  core::CentroiderSettings next = shadow_.value_or(pipeline_.settings().centroider);
+  for (const v1::CentroiderOption& o : req.options()) {
+    const auto value = io::from_wire(o);
+    if (!value) return reply.set_error(fmt::format("centroider option '{}' has no value", o.key()));
+    if (auto e = core::apply_option(next, o.key(), *value); !e.empty()) return reply.set_error(e);
+  }
+  if (next.reference != core::ReferenceSource::kGaussian)
+    return reply.set_error("the shadow takes the synthetic (Gaussian) correlation reference only");
+  core::PipelineSettings settings = pipeline_.settings();
+  settings.centroider = next;
+  if (auto e = core::validate(settings); !e.empty()) return reply.set_error(e);
+  const bool changed = !shadow_ || core::list_options(next) != core::list_options(*shadow_);
+  if (changed && (req.options_size() > 0 || !shadow_)) {
+    shadow_ = next;
+    insight_->set_shadow(next);
+    spdlog::info("shadow centroider now {}", core::describe(next));
+  }
+  auto* out = reply.mutable_centroider();
+  io::describe_centroider(*shadow_, settings_generation_, *out);
+  out->set_changed(changed);
+  reply.set_ok(true);
+}
+
 void Daemon::set_centroider(const v1::SetCentroiderRequest& req, v1::ControlReply& reply) {
+  if (req.shadow() || req.shadow_off()) return set_shadow(req, reply);
   const core::CentroiderSettings& now = pipeline_.settings().centroider;
   core::CentroiderSettings next = now;
   bool file_named = false;

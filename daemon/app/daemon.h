@@ -81,6 +81,9 @@ class Daemon {
   // Applies a set_centroider request: fills reply with the settings in force,
   // or an error and leaves them unchanged.
   void set_centroider(const v1::SetCentroiderRequest& req, v1::ControlReply& reply);
+  // The same request with shadow or shadow_off: the insight thread's second
+  // centroider.
+  void set_shadow(const v1::SetCentroiderRequest& req, v1::ControlReply& reply);
   // Applies a calibration request (acquisitions, save, load, show).
   void calibrate(const v1::CalibrationRequest& req, v1::ControlReply& reply);
   // Builds the pipeline for `next` between two frames (settings generation
@@ -134,6 +137,7 @@ class Daemon {
   zmq::socket_t zap_;             // REP on inproc://zeromq.zap.01 when [security] is on
   // [insight]: the analysis thread and its PUB socket (none when off).
   std::unique_ptr<InsightWorker> insight_;
+  std::optional<core::CentroiderSettings> shadow_;  // the shadow centroider in force
   std::uint64_t connections_refused_ = 0;
   zmq::message_t header_msg_, payload_msg_, extra_msg_;
 };

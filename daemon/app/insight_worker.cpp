@@ -43,6 +43,7 @@ InsightWorker::InsightWorker(zmq::socket_t socket, const io::DaemonConfig& confi
     s.wire.reserve(1 << 16);
   }
   pending_ = Geometry{live.settings(), live.boxes()};
+  shadow_on_ = settings_.shadow;
   thread_ = std::thread([this] { run(); });
 }
 
@@ -58,6 +59,12 @@ InsightWorker::~InsightWorker() {
 void InsightWorker::reconfigure(const core::Pipeline& live) {
   std::lock_guard lock(mutex_);
   pending_ = Geometry{live.settings(), live.boxes()};
+}
+
+void InsightWorker::set_shadow(std::optional<core::CentroiderSettings> shadow) {
+  shadow_on_ = shadow.has_value();
+  std::lock_guard lock(mutex_);
+  pending_shadow_ = std::move(shadow);
 }
 
 void InsightWorker::offer(const core::FrameMeasurement& m, const core::ImageView& image, std::uint64_t seq,
@@ -88,7 +95,7 @@ void InsightWorker::offer(const core::FrameMeasurement& m, const core::ImageView
   if (s.preview)
     next_preview_ = now + std::chrono::duration_cast<std::chrono::steady_clock::duration>(
                               std::chrono::duration<double>(1.0 / settings_.preview_rate_hz));
-  s.has_pixels = settings_.shadow || s.preview;
+  s.has_pixels = shadow_on_.load(std::memory_order_relaxed) || s.preview;
   if (s.has_pixels) {
     const std::size_t row = static_cast<std::size_t>(image.width) * core::bytes_per_pixel(image.format);
     s.pixels.resize(row * image.height);
@@ -147,19 +154,29 @@ void InsightWorker::rebuild(const Geometry& g) {
   coefficient_ring_.assign(static_cast<std::size_t>(settings_.window_frames) * coefficients_.size(), 0.0);
   coefficient_count_ = coefficient_next_ = 0;
   modes_seq_ = 0;
-  shadow_ring_.assign(static_cast<std::size_t>(settings_.window_frames) * n * 2, 0.0f);
-  shadow_count_ = shadow_next_ = 0;
-  shadow_.reset();
-  if (settings_.shadow) {
-    core::PipelineSettings s = g.settings;
-    s.centroider = settings_.shadow_centroider;
-    shadow_ = std::make_unique<core::Pipeline>(std::move(s));
-    shadow_m_ = shadow_->make_measurement();
-  }
+  rebuild_shadow();
   ox_.assign(n, 0.0);
   oy_.assign(n, 0.0);
   valid_.assign(n, 0);
   last_ = Slot{};
+}
+
+void InsightWorker::rebuild_shadow() {
+  const int n = static_cast<int>(geometry_.boxes.size());
+  shadow_ring_.assign(static_cast<std::size_t>(settings_.window_frames) * n * 2, 0.0f);
+  shadow_count_ = shadow_next_ = 0;
+  shadow_.reset();
+  if (!settings_.shadow) return;
+  core::PipelineSettings s = geometry_.settings;
+  s.centroider = settings_.shadow_centroider;
+  if (auto e = core::validate(s); !e.empty()) {  // a live grid change may not suit it any more
+    spdlog::warn("insight: shadow centroider {} stopped: {}", core::describe(s.centroider), e);
+    settings_.shadow = false;
+    shadow_on_ = false;
+    return;
+  }
+  shadow_ = std::make_unique<core::Pipeline>(std::move(s));
+  shadow_m_ = shadow_->make_measurement();
 }
 
 void InsightWorker::analyse(Slot& s) {
@@ -395,20 +412,31 @@ void InsightWorker::run() {
   for (;;) {
     int index = -1;
     std::optional<Geometry> geometry;
+    std::optional<std::optional<core::CentroiderSettings>> shadow;
     {
       std::unique_lock lock(mutex_);
-      ready_cv_.wait_until(lock, next_report, [&] { return stop_ || !ready_.empty() || pending_; });
+      ready_cv_.wait_until(lock, next_report,
+                           [&] { return stop_ || !ready_.empty() || pending_ || pending_shadow_; });
       if (stop_) return;
       if (pending_) {
         geometry = std::move(pending_);
         pending_.reset();
+      }
+      if (pending_shadow_) {
+        shadow = std::move(pending_shadow_);
+        pending_shadow_.reset();
       }
       if (!ready_.empty()) {
         index = ready_.front();
         ready_.erase(ready_.begin());
       }
     }
+    if (shadow) {
+      settings_.shadow = shadow->has_value();
+      if (*shadow) settings_.shadow_centroider = **shadow;
+    }
     if (geometry) rebuild(*geometry);
+    else if (shadow && window_) rebuild_shadow();
     if (index >= 0) {
       try {
         analyse(slots_[index]);

@@ -55,6 +55,9 @@ class InsightWorker {
              const v1::Measurement& wire);
   // From the loop thread when the pipeline's settings change.
   void reconfigure(const core::Pipeline& live);
+  // From the loop thread: run this shadow centroider from the next frame
+  // (nullopt: none). Its statistics start afresh.
+  void set_shadow(std::optional<core::CentroiderSettings> shadow);
 
   std::uint64_t frames_analysed() const { return analysed_.load(std::memory_order_relaxed); }
   std::uint64_t frames_skipped() const { return skipped_.load(std::memory_order_relaxed); }
@@ -77,6 +80,7 @@ class InsightWorker {
 
   void run();
   void rebuild(const Geometry& g);
+  void rebuild_shadow();
   void analyse(Slot& s);
   void publish_reports(std::uint64_t seq);
   void publish_preview(const Slot& s);
@@ -93,6 +97,8 @@ class InsightWorker {
   std::condition_variable ready_cv_;
   std::vector<int> free_, ready_;  // ready_ in arrival order
   std::optional<Geometry> pending_;
+  std::optional<std::optional<core::CentroiderSettings>> pending_shadow_;
+  std::atomic<bool> shadow_on_{false};  // read by offer(): copy the pixels
   bool stop_ = false;
   std::atomic<std::uint64_t> analysed_{0}, skipped_{0}, shadow_frames_{0};
   // Loop-thread state for previews.

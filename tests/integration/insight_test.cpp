@@ -10,6 +10,7 @@
 #include <csignal>
 #include <fstream>
 #include <map>
+#include <thread>
 
 #include <opencv2/imgcodecs.hpp>
 
@@ -167,4 +168,51 @@ TEST_CASE("slopecast snap writes a PNG of the frame's size with the spots where 
     found += mark;
   }
   CHECK(found == 256);
+}
+
+TEST_CASE("the shadow centroider is started, changed and stopped live", "[integration][insight]") {
+  testing::DaemonHarness h;
+  std::string insight_ep = "ipc://";
+  insight_ep += (h.dir / "insight").string();
+  h.endpoints_extra = "insight_out = \"" + insight_ep + "\"\n";
+  REQUIRE(h.start(insight_config("preview_rate_hz = 0")));
+  const std::string config = (h.dir / "slopecastd.toml").string();
+  auto run = [&](std::vector<std::string> args, const char* log) {
+    args.insert(args.begin(), {"centroider", "--config", config});
+    testing::ChildProcess p(SLOPECAST_PATH, args, h.dir / log);
+    const auto rc = p.wait(10s);
+    return std::pair{rc, testing::read_log(h.dir / log)};
+  };
+  auto [rc1, said1] = run({"--shadow", "--method", "tcog", "--set", "threshold=0.3"}, "shadow1.log");
+  INFO(said1);
+  CHECK(rc1 == 0);
+  CHECK_THAT(said1, Catch::Contains("shadow now tcog"));
+  // Frames flow; the shadow measures them.
+  testing::ChildProcess sim(SLOPECAST_PATH,
+                            {"sim", "--frames-out", h.frames_endpoint, "--frames", "300", "--rate-hz", "500",
+                             "--block-when-full", "--subapertures-x", "16", "--subapertures-y", "16", "--pitch-px",
+                             "15"},
+                            h.dir / "sim.log");
+  REQUIRE(sim.wait(60s) == 0);
+  const auto deadline = std::chrono::steady_clock::now() + 10s;
+  while (h.status().frames_processed() < 300 && std::chrono::steady_clock::now() < deadline) std::this_thread::sleep_for(20ms);
+  CHECK(h.status().shadow_frames() > 0u);
+  // The live centroider did not change.
+  CHECK(h.status().centroider().summary().rfind("cog", 0) == 0);
+  auto [rc2, said2] = run({"--shadow-off"}, "shadow2.log");
+  CHECK(rc2 == 0);
+  auto [rc3, said3] = run({"--shadow-off"}, "shadow3.log");
+  CHECK(rc3 == 1);
+  CHECK_THAT(said3, Catch::Contains("no shadow centroider is running"));
+}
+
+TEST_CASE("without [insight] a shadow request is refused with the reason", "[integration][insight]") {
+  testing::DaemonHarness h;
+  REQUIRE(h.start("[camera]\nwidth_px = 32\nheight_px = 32\npixel_type = \"u16\"\n"
+                  "[lenslet_grid]\nsubapertures_x = 4\nsubapertures_y = 4\npitch_px = 8\n"));
+  testing::ChildProcess p(SLOPECAST_PATH,
+                          {"centroider", "--config", (h.dir / "slopecastd.toml").string(), "--shadow", "--method", "wcog"},
+                          h.dir / "c.log");
+  CHECK(p.wait(10s) == 1);
+  CHECK_THAT(testing::read_log(h.dir / "c.log"), Catch::Contains("[insight] enabled = true"));
 }
