@@ -30,9 +30,10 @@ packages=(
   libcfitsio-dev libspdlog-dev libfmt-dev libcli11-dev libtoml11-dev zlib1g-dev
 )
 # Test mode only: the tests read our FITS files with an independent
-# implementation (astropy), and the fuzzers (.ci/fuzz.sh) need clang and
-# its libFuzzer runtime.
-if [[ "$mode" == test ]]; then packages+=(python3-astropy clang libclang-rt-14-dev); fi
+# implementation (astropy), run the Python client (client/python: zmq,
+# protobuf, numpy, which its users install too), and the fuzzers
+# (.ci/fuzz.sh) need clang and its libFuzzer runtime.
+if [[ "$mode" == test ]]; then packages+=(python3-astropy python3-zmq python3-protobuf python3-numpy clang libclang-rt-14-dev); fi
 missing=()
 for p in "${packages[@]}"; do
   dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed" || missing+=("$p")

@@ -46,6 +46,10 @@ std::variant<ScenarioFile, std::string> parse_scenario(const std::string& text, 
     r.integer("screen_samples", s.screen_samples, 0, 8192);
     done(r);
   }
+  // No [[layer]]: no turbulence at all (static aberrations only), as the
+  // README says; the struct's default single layer is for code that makes
+  // scenes by hand.
+  s.layers.clear();
   if (const auto* layers = table("layer")) {
     f.layers_given = true;
     s.layers.clear();

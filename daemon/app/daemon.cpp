@@ -161,6 +161,7 @@ Daemon::Daemon(io::DaemonConfig config)
   // Pre-size the outgoing message's repeated fields so the first frame does
   // not pay for their allocation either.
   io::encode_measurement(measurement_, io::MeasurementStamp{}, out_msg_);
+  out_msg_.set_sensor_name(config_.sensor_name);
 }
 
 Daemon::~Daemon() { zmq_socket_monitor(frames_.handle(), nullptr, 0); }
@@ -384,6 +385,7 @@ void Daemon::apply_settings(core::PipelineSettings next, const std::string& why)
   // grid): it cannot serve a reference capture any more.
   has_last_image_ = false;
   io::encode_measurement(measurement_, io::MeasurementStamp{}, out_msg_);
+  out_msg_.set_sensor_name(config_.sensor_name);
   ++settings_generation_;
   const auto& g = pipeline_.settings().grid;
   spdlog::info("{}: now {} x {} subapertures of {} px, {} path (settings generation {})", why, g.n_subap_x,
@@ -551,6 +553,7 @@ void Daemon::fill_status(v1::StatusReply& s) {
   s.set_newest_frame_only(config_.newest_frame_only);
   s.set_access_control(config_.curve);
   s.set_connections_refused(connections_refused_);
+  s.set_sensor_name(config_.sensor_name);
   if (insight_) {
     s.set_insight_frames_analysed(insight_->frames_analysed());
     s.set_insight_frames_skipped(insight_->frames_skipped());

@@ -136,6 +136,8 @@ relative to the config file.
   stale_after_s         = 1.0          no frame for this long: stream state "stale"
   max_seq_jump          = 100000       a larger forward seq jump is a restart, not
                                        missed frames
+  sensor_name           = "wfs-a"      carried by every measurement and status reply, to
+                                       tell several sensors' streams apart (default "")
   worker_threads        = 1            threads measuring each frame, rows split between
                                        them (default 1; try 2 for 80 x 80 and up)
   max_frame_bytes       = 180224       largest frame part accepted; a larger one

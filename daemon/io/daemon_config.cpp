@@ -241,12 +241,14 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   d.integer("latency_window_frames", c.latency_window_frames, 16, 65536);
   d.integer("worker_threads", c.worker_threads, 1, 64);
   d.boolean("newest_frame_only", c.newest_frame_only);
+  d.string("sensor_name", c.sensor_name);
   d.number("stale_after_s", c.stale_after_s, 0.001);
   double max_jump = static_cast<double>(c.max_seq_jump), max_frame = 0.0;
   d.number("max_seq_jump", max_jump, 1.0);
   d.number("max_frame_bytes", max_frame, 0.0);
   d.reject_unknown();
   if (!d.error.empty()) return fail(d.error);
+  if (c.sensor_name.size() > 64) return fail("[daemon] sensor_name: at most 64 characters");
   c.max_seq_jump = static_cast<std::uint64_t>(std::min(max_jump, 9.0e18));
 
   if (auto err = core::validate(p.camera); !err.empty()) return fail(err);

@@ -88,6 +88,9 @@ struct DaemonConfig {
   // whenever another frame is already queued the current one is skipped
   // (counted in frames_skipped), so a loop always gets the freshest frame.
   bool newest_frame_only = false;
+  // A name for this sensor, carried by every measurement and status reply,
+  // so that one subscriber can tell several daemons' streams apart.
+  std::string sensor_name;
   // Dark frame path as resolved (empty: none). The pixels are in pipeline.dark_adu.
   std::filesystem::path dark_frame;
   // Calibration set loaded at start ([calibration] set; empty: none), and
