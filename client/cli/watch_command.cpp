@@ -3,6 +3,7 @@
 #include <cmath>
 #include <iostream>
 #include <memory>
+#include <thread>
 
 #include <fmt/format.h>
 #include <zmq.hpp>
@@ -22,8 +23,8 @@ constexpr const char* kCmd = "watch";
 
 struct WatchOptions {
   KeyOptions keys;
-  std::string config;
-  std::string measurements = io::kDefaultMeasurementsEndpoint;
+  std::vector<std::string> configs;
+  std::vector<std::string> measurements;  // default: io::kDefaultMeasurementsEndpoint
   double duration_s = 0.0;   // 0: until interrupted or count reached
   std::uint64_t count = 0;   // 0: no limit
   double interval_s = 1.0;
@@ -115,18 +116,37 @@ void print_summary(const client::TallySummary& s) {
       s.daemon_p99_us, s.slope_rms_x_px, s.slope_rms_y_px, s.mean_valid, s.subapertures);
 }
 
+// One daemon's stream: its subscriber and tallies.
+struct Stream {
+  std::string endpoint, label;
+  std::unique_ptr<client::MeasurementSubscriber> sub;
+  client::MeasurementTally total, interval;
+};
+
 void run_watch(WatchOptions o) {
-  if (!o.config.empty()) {
-    auto c = read_daemon_config(kCmd, o.config);
+  std::vector<std::string> labels;
+  for (const auto& path : o.configs) {
+    auto c = read_daemon_config(kCmd, path);
     if (!c) return;
-    o.measurements = c->endpoints.measurements_out;
-    if (c->insight.enabled && o.insight.empty()) o.insight = c->endpoints.insight_out;
+    o.measurements.push_back(c->endpoints.measurements_out);
+    labels.push_back(c->sensor_name.empty() ? path : c->sensor_name);
+    if (c->insight.enabled && o.insight.empty() && o.configs.size() == 1) o.insight = c->endpoints.insight_out;
   }
-  if (!endpoint_ok(kCmd, "--measurements", o.measurements)) return;
+  if (o.measurements.empty()) o.measurements.push_back(io::kDefaultMeasurementsEndpoint);
+  for (const auto& e : o.measurements)
+    if (!endpoint_ok(kCmd, "--measurements", e)) return;
+  const bool several = o.measurements.size() > 1;
+  if (several && (!o.insight.empty() || o.map))
+    return fail(kCmd, "--insight and --map follow one daemon; give one --config or --measurements with them");
   zmq::context_t ctx(1);
   std::optional<client::CurveClient> curve;
   if (!load_keys(kCmd, o.keys, curve)) return;
-  client::MeasurementSubscriber sub(ctx, o.measurements, curve);
+  std::vector<Stream> streams(o.measurements.size());
+  for (std::size_t k = 0; k < streams.size(); ++k) {
+    streams[k].endpoint = o.measurements[k];
+    streams[k].label = k < labels.size() ? labels[k] : std::string();
+    streams[k].sub = std::make_unique<client::MeasurementSubscriber>(ctx, o.measurements[k], curve);
+  }
   std::unique_ptr<client::InsightSubscriber> insight;
   if (!o.insight.empty()) {
     if (!endpoint_ok(kCmd, "--insight", o.insight)) return;
@@ -135,50 +155,63 @@ void run_watch(WatchOptions o) {
   }
   InsightView view;
   std::optional<v1::Measurement> latest;
-  client::MeasurementTally total, interval;
   using clock = std::chrono::steady_clock;
   const auto start = clock::now();
   auto next_line = start + std::chrono::duration<double>(o.interval_s);
   auto last_seen = start;
-  std::cout << "watching " << o.measurements << (o.duration_s > 0 ? fmt::format(" for {:.0f} s", o.duration_s) : "")
-            << " (Ctrl-C to stop)\n";
+  std::uint64_t count = 0;
+  std::cout << "watching " << fmt::format("{}", fmt::join(o.measurements, ", "))
+            << (o.duration_s > 0 ? fmt::format(" for {:.0f} s", o.duration_s) : "") << " (Ctrl-C to stop)\n";
+  auto prefix = [&](const Stream& st) { return several ? fmt::format("[{}] ", st.label.empty() ? st.endpoint : st.label) : std::string(); };
   while (!stop_requested()) {
     const auto now = clock::now();
     if (o.duration_s > 0 && now - start >= std::chrono::duration<double>(o.duration_s)) break;
-    if (o.count > 0 && total.count() >= o.count) break;
+    if (o.count > 0 && count >= o.count) break;
     if (o.idle_timeout_s > 0 && now - last_seen >= std::chrono::duration<double>(o.idle_timeout_s)) {
       std::cerr << fmt::format("slopecast watch: no measurement for {:.1f} s\n", o.idle_timeout_s);
       exit_code() = 1;
       break;
     }
     if (now >= next_line) {
-      std::cout << format_tally_line(interval.summary()) << "\n";
+      for (auto& st : streams) {
+        std::cout << prefix(st) << format_tally_line(st.interval.summary()) << "\n";
+        st.interval.clear();
+      }
       if (insight) std::cout << "    " << view.r0_text() << "\n    " << view.modes_text() << "\n";
       if (o.map && latest) std::cout << subaperture_map(*latest);
       std::cout << std::flush;
-      interval.clear();
       next_line += std::chrono::duration_cast<clock::duration>(std::chrono::duration<double>(o.interval_s));
     }
     if (insight)
       while (auto r = insight->receive(std::chrono::milliseconds(0))) view.take(*r);
-    auto m = sub.receive(std::chrono::milliseconds(50));
-    if (!m) continue;
-    if (o.map) latest = *m;
-    const std::uint64_t t = client::wall_clock_ns();
-    last_seen = clock::now();
-    total.add(*m, t);
-    interval.add(*m, t);
+    bool any = false;
+    for (auto& st : streams) {
+      auto m = st.sub->receive(std::chrono::milliseconds(several ? 0 : 50));
+      if (!m) continue;
+      any = true;
+      if (st.label.empty() && !m->sensor_name().empty()) st.label = m->sensor_name();
+      if (o.map) latest = *m;
+      const std::uint64_t t = client::wall_clock_ns();
+      last_seen = clock::now();
+      st.total.add(*m, t);
+      st.interval.add(*m, t);
+      ++count;
+    }
+    if (several && !any) std::this_thread::sleep_for(std::chrono::milliseconds(2));
   }
   if (stop_requested()) std::cout << "stopped by a signal\n";
-  print_summary(total.summary());
+  for (auto& st : streams) {
+    if (several) std::cout << prefix(st);
+    print_summary(st.total.summary());
+    if (st.sub->malformed() > 0) std::cout << "  malformed messages skipped: " << st.sub->malformed() << "\n";
+  }
   if (insight) {
     std::cout << "  " << view.r0_text() << "\n  " << view.modes_text() << "\n";
     if (view.shadow)
       std::cout << fmt::format("  shadow {}: shadow - live {:.4f} px rms over {} frames\n", view.shadow->centroider(),
                                view.shadow->overall_rms_px(), view.shadow->window_frames());
   }
-  if (sub.malformed() > 0) std::cout << "  malformed messages skipped: " << sub.malformed() << "\n";
-  if (total.count() == 0 && exit_code() == 0 && !stop_requested()) {
+  if (count == 0 && exit_code() == 0 && !stop_requested()) {
     std::cerr << "slopecast watch: received no measurement\n";
     exit_code() = 1;
   }
@@ -189,11 +222,13 @@ void run_watch(WatchOptions o) {
 void add_watch_command(CLI::App& app) {
   auto opts = std::make_shared<WatchOptions>();
   auto* cmd = app.add_subcommand("watch", "Print a live view of slopecastd's measurements and a summary");
-  auto* config = cmd->add_option("--config", opts->config,
-                                 "Take the measurement endpoint from this slopecastd config file")
+  auto* config = cmd->add_option("--config", opts->configs,
+                                 "Take the measurement endpoint from this slopecastd config file (repeat to follow "
+                                 "several daemons: one line per sensor, named by its [daemon] sensor_name)")
                     ->check(CLI::ExistingFile);
-  cmd->add_option("--measurements", opts->measurements, "Daemon measurement endpoint")
-      ->capture_default_str()
+  cmd->add_option("--measurements", opts->measurements,
+                  fmt::format("Daemon measurement endpoint (default {}; repeat for several daemons)",
+                              io::kDefaultMeasurementsEndpoint))
       ->excludes(config);
   cmd->add_option("--duration-s", opts->duration_s, "Stop after this many seconds (0: no limit)")
       ->check(CLI::NonNegativeNumber);
