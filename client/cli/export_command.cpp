@@ -7,7 +7,7 @@
 #include <fmt/format.h>
 
 #include "client/cli/commands.h"
-#include "client/lib/recording.h"
+#include "daemon/io/recording.h"
 #include "daemon/io/fits_image.h"
 #include "daemon/io/wire_codec.h"
 #include "slopecast/v1/frame.pb.h"
@@ -64,18 +64,18 @@ void run_export(const ExportOptions& o) {
   std::string slope_unit;
   std::uint64_t measurements = 0;
   for (const auto& path : o.inputs) {
-    auto opened = client::RecordingReader::open(path);
+    auto opened = io::RecordingReader::open(path);
     if (auto* e = std::get_if<std::string>(&opened)) return fail(kCmd, *e);
-    auto& reader = *std::get<std::unique_ptr<client::RecordingReader>>(opened);
-    client::RecordedMessage m;
-    for (client::ReadOutcome r; (r = reader.next(m)) != client::ReadOutcome::kEnd;) {
+    auto& reader = *std::get<std::unique_ptr<io::RecordingReader>>(opened);
+    io::RecordedMessage m;
+    for (io::ReadOutcome r; (r = reader.next(m)) != io::ReadOutcome::kEnd;) {
       if (stop_requested()) return;
-      if (r != client::ReadOutcome::kRecord) {
+      if (r != io::ReadOutcome::kRecord) {
         std::cerr << "slopecast export: warning: " << reader.problem() << "\n";
         ++problems;
         continue;
       }
-      if (m.kind == client::RecordKind::kFrame && !o.fits_cube.empty()) {
+      if (m.kind == io::RecordKind::kFrame && !o.fits_cube.empty()) {
         v1::FrameHeader h;
         if (m.parts.size() != 2 || !h.ParseFromString(m.parts[0])) continue;
         const std::uint64_t i = frame_index++;
@@ -106,14 +106,14 @@ void run_export(const ExportOptions& o) {
         seqs.push_back(static_cast<double>(h.seq()));
         camera_ns.push_back(static_cast<double>(h.camera_time_ns()));
         received_ns.push_back(static_cast<double>(m.received_ns));
-      } else if (m.kind == client::RecordKind::kTruth && truth.is_open()) {
+      } else if (m.kind == io::RecordKind::kTruth && truth.is_open()) {
         v1::FrameTruth t;
         if (m.parts.size() != 1 || !t.ParseFromString(m.parts[0])) continue;
         ++truths;
         for (int s = 0; s < t.true_dx_px_size() && s < t.true_dy_px_size(); ++s)
           truth << fmt::format("{},{},{:.6f},{:.6f},{:.4f}\n", t.frame_seq(), s, t.true_dx_px(s), t.true_dy_px(s),
                                s < t.illuminated_size() ? t.illuminated(s) : 1.0f);
-      } else if (m.kind == client::RecordKind::kMeasurement &&
+      } else if (m.kind == io::RecordKind::kMeasurement &&
                  (!o.measurements_csv.empty() || !o.measurements_fits.empty())) {
         v1::Measurement meas;
         if (m.parts.size() != 1 || !meas.ParseFromString(m.parts[0])) continue;

@@ -1,5 +1,5 @@
 // `slopecast record`: subscribes to a camera's frames and/or a daemon's
-// measurements and writes them to a recording (client/lib/recording.h).
+// measurements and writes them to a recording (daemon/io/recording.h).
 //
 // Two threads: this one receives (it never waits on the disk), a writer
 // thread appends. Between them a bounded queue; when the disk falls behind
@@ -21,7 +21,7 @@
 #include "client/lib/frame_publisher.h"
 #include "client/lib/interruptible_poll.h"
 #include "client/lib/measurement_tally.h"
-#include "client/lib/recording.h"
+#include "daemon/io/recording.h"
 #include "slopecast/v1/frame.pb.h"
 #include "slopecast/v1/measurement.pb.h"
 #include "slopecast/v1/recording.pb.h"
@@ -65,7 +65,7 @@ struct SeqTally {
 class Queue {
  public:
   Queue(std::size_t max_messages, std::uint64_t max_bytes) : max_messages_(max_messages), max_bytes_(max_bytes) {}
-  bool push(client::RecordedMessage&& m) {
+  bool push(io::RecordedMessage&& m) {
     std::uint64_t size = 0;
     for (const auto& p : m.parts) size += p.size();
     {
@@ -78,7 +78,7 @@ class Queue {
     return true;
   }
   // False once closed and empty.
-  bool pop(client::RecordedMessage& out) {
+  bool pop(io::RecordedMessage& out) {
     std::unique_lock lock(mutex_);
     ready_.wait(lock, [&] { return !items_.empty() || closed_; });
     if (items_.empty()) return false;
@@ -98,7 +98,7 @@ class Queue {
  private:
   std::mutex mutex_;
   std::condition_variable ready_;
-  std::deque<client::RecordedMessage> items_;
+  std::deque<io::RecordedMessage> items_;
   std::size_t max_messages_;
   std::uint64_t max_bytes_, bytes_ = 0;
   bool closed_ = false;
@@ -126,7 +126,7 @@ void run_record(RecordOptions o) {
   if (!o.measurements_from.empty() && !endpoint_ok(kCmd, "--measurements-from", o.measurements_from)) return;
   if (!o.truth_from.empty() && !endpoint_ok(kCmd, "--truth-from", o.truth_from)) return;
   if (o.rotate_bytes && o.rotate_bytes < (1u << 20)) return fail(kCmd, "--rotate-bytes must be at least 1 MiB");
-  const std::filesystem::path first_path = o.rotate_bytes ? client::rotated_path(o.out, 0) : std::filesystem::path(o.out);
+  const std::filesystem::path first_path = o.rotate_bytes ? io::rotated_path(o.out, 0) : std::filesystem::path(o.out);
   if (std::filesystem::exists(first_path))
     return fail(kCmd, fmt::format("'{}' exists; a recording is never overwritten", first_path.string()));
   std::optional<client::CurveClient> curve;
@@ -161,10 +161,10 @@ void run_record(RecordOptions o) {
   header.set_frames_from(o.frames_from);
   header.set_measurements_from(o.measurements_from);
   std::thread writer([&] {
-    std::unique_ptr<client::RecordingWriter> file;
+    std::unique_ptr<io::RecordingWriter> file;
     unsigned part = 0;
     std::uint64_t total_records = 0, total_bytes = 0;
-    client::RecordedMessage m;
+    io::RecordedMessage m;
     auto finish_file = [&] {
       if (!file) return;
       if (auto e = file->close(); !e.empty() && result.error.empty()) result.error = e;
@@ -175,7 +175,7 @@ void run_record(RecordOptions o) {
       if (result.limit_reached || !result.error.empty()) continue;  // drain
       if (!file || (o.rotate_bytes && file->bytes() >= o.rotate_bytes)) {
         finish_file();
-        if (m.kind == client::RecordKind::kFrame && header.width_px() == 0) {
+        if (m.kind == io::RecordKind::kFrame && header.width_px() == 0) {
           v1::FrameHeader fh;
           if (fh.ParseFromString(m.parts[0])) {
             header.set_width_px(fh.width_px());
@@ -187,13 +187,13 @@ void run_record(RecordOptions o) {
         header.set_created_ns(client::wall_clock_ns());
         header.set_part(part);
         header.set_first_record(total_records);
-        const auto path = o.rotate_bytes ? client::rotated_path(o.out, part) : std::filesystem::path(o.out);
-        auto made = client::RecordingWriter::create(path, header);
+        const auto path = o.rotate_bytes ? io::rotated_path(o.out, part) : std::filesystem::path(o.out);
+        auto made = io::RecordingWriter::create(path, header);
         if (auto* e = std::get_if<std::string>(&made)) {
           result.error = *e;
           continue;
         }
-        file = std::move(std::get<std::unique_ptr<client::RecordingWriter>>(made));
+        file = std::move(std::get<std::unique_ptr<io::RecordingWriter>>(made));
         result.files.push_back(path.string());
         ++part;
       }
@@ -227,9 +227,9 @@ void run_record(RecordOptions o) {
   const char* stop_reason = "stopped by a signal";
   std::uint64_t last_frame_seq = 0;
   std::optional<clock::time_point> grace_until;
-  auto receive_from = [&](zmq::socket_t& socket, client::RecordKind kind) {
+  auto receive_from = [&](zmq::socket_t& socket, io::RecordKind kind) {
     for (int burst = 0; burst < 256; ++burst) {
-      client::RecordedMessage m;
+      io::RecordedMessage m;
       m.kind = kind;
       zmq::message_t part;
       if (!socket.recv(part, zmq::recv_flags::dontwait)) return;
@@ -239,7 +239,7 @@ void run_record(RecordOptions o) {
         (void)socket.recv(part);
         m.parts.emplace_back(part.to_string());
       }
-      const bool frame = kind == client::RecordKind::kFrame;
+      const bool frame = kind == io::RecordKind::kFrame;
       std::uint64_t seq = 0;
       if (frame) {
         v1::FrameHeader h;
@@ -248,7 +248,7 @@ void run_record(RecordOptions o) {
           continue;
         }
         seq = h.seq();
-      } else if (kind == client::RecordKind::kTruth) {
+      } else if (kind == io::RecordKind::kTruth) {
         v1::FrameTruth h;
         if (m.parts.size() != 1 || !h.ParseFromString(m.parts[0])) {
           ++malformed;
@@ -304,9 +304,9 @@ void run_record(RecordOptions o) {
     }
     if (client::interruptible_poll(items.data(), items.size(), std::chrono::milliseconds(100)) ==
         client::PollResult::kReady) {
-      if (frames) receive_from(*frames, client::RecordKind::kFrame);
-      if (measurements) receive_from(*measurements, client::RecordKind::kMeasurement);
-      if (truths) receive_from(*truths, client::RecordKind::kTruth);
+      if (frames) receive_from(*frames, io::RecordKind::kFrame);
+      if (measurements) receive_from(*measurements, io::RecordKind::kMeasurement);
+      if (truths) receive_from(*truths, io::RecordKind::kTruth);
     }
     if (clock::now() - last_line >= std::chrono::seconds(1)) {
       last_line = clock::now();

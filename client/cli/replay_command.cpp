@@ -15,7 +15,7 @@
 #include "client/lib/frame_publisher.h"
 #include "client/lib/measurement_subscriber.h"
 #include "client/lib/measurement_tally.h"
-#include "client/lib/recording.h"
+#include "daemon/io/recording.h"
 #include "daemon/io/fits_image.h"
 #include "daemon/io/wire_codec.h"
 
@@ -76,26 +76,26 @@ class RecordingSource : public FrameSource {
     for (;;) {
       if (!reader_) {
         if (index_ >= files_.size()) return false;
-        auto opened = client::RecordingReader::open(files_[index_++]);
+        auto opened = io::RecordingReader::open(files_[index_++]);
         if (auto* e = std::get_if<std::string>(&opened)) {
           std::cerr << "slopecast replay: " << *e << "; skipped\n";
           ++problems_;
           continue;
         }
-        reader_ = std::move(std::get<std::unique_ptr<client::RecordingReader>>(opened));
+        reader_ = std::move(std::get<std::unique_ptr<io::RecordingReader>>(opened));
       }
-      client::RecordedMessage m;
+      io::RecordedMessage m;
       const auto outcome = reader_->next(m);
-      if (outcome == client::ReadOutcome::kEnd) {
+      if (outcome == io::ReadOutcome::kEnd) {
         reader_.reset();
         continue;
       }
-      if (outcome != client::ReadOutcome::kRecord) {
+      if (outcome != io::ReadOutcome::kRecord) {
         std::cerr << "slopecast replay: warning: " << reader_->problem() << "\n";
         ++problems_;
         continue;
       }
-      if (m.kind != client::RecordKind::kFrame || m.parts.size() != 2) continue;
+      if (m.kind != io::RecordKind::kFrame || m.parts.size() != 2) continue;
       v1::FrameHeader h;
       if (!h.ParseFromString(m.parts[0])) continue;
       f.header = std::move(m.parts[0]);
@@ -115,7 +115,7 @@ class RecordingSource : public FrameSource {
  private:
   std::vector<std::string> files_;
   std::size_t index_ = 0;
-  std::unique_ptr<client::RecordingReader> reader_;
+  std::unique_ptr<io::RecordingReader> reader_;
   std::uint64_t problems_ = 0;
 };
 
@@ -185,7 +185,7 @@ void run_replay(ReplayOptions o) {
     for (const auto& in : o.inputs) {
       if (is_fits(in)) return fail(kCmd, fmt::format("'{}' is a FITS file: replay one cube at a time", in));
       // Every file must open before the first frame goes out.
-      auto opened = client::RecordingReader::open(in);
+      auto opened = io::RecordingReader::open(in);
       if (auto* e = std::get_if<std::string>(&opened)) return fail(kCmd, *e);
     }
     source = std::make_unique<RecordingSource>(o.inputs);
@@ -202,7 +202,7 @@ void run_replay(ReplayOptions o) {
     return fail(kCmd, fmt::format("cannot bind {}: {}", o.frames_out, e.what()));
   }
   std::unique_ptr<client::MeasurementSubscriber> sub;
-  std::unique_ptr<client::RecordingWriter> saved;
+  std::unique_ptr<io::RecordingWriter> saved;
   if (o.flow) {
     // Make sure the daemon holds our measurement subscription before the
     // first frame: its status counts subscriptions.
@@ -225,9 +225,9 @@ void run_replay(ReplayOptions o) {
       h.set_writer("slopecast replay --save-measurements");
       h.set_measurements_from(o.measurements_from);
       h.set_created_ns(client::wall_clock_ns());
-      auto made = client::RecordingWriter::create(o.save_measurements, h);
+      auto made = io::RecordingWriter::create(o.save_measurements, h);
       if (auto* e = std::get_if<std::string>(&made)) return fail(kCmd, *e);
-      saved = std::move(std::get<std::unique_ptr<client::RecordingWriter>>(made));
+      saved = std::move(std::get<std::unique_ptr<io::RecordingWriter>>(made));
     }
   }
   std::cout << fmt::format("replaying {} on {}: {}{}\n", source->describe(), o.frames_out,
@@ -276,7 +276,7 @@ void run_replay(ReplayOptions o) {
         if (saved) {
           const std::string bytes = m->SerializeAsString();
           const std::string_view part[] = {bytes};
-          if (auto e = saved->append(client::RecordKind::kMeasurement, client::wall_clock_ns(), part); !e.empty()) {
+          if (auto e = saved->append(io::RecordKind::kMeasurement, client::wall_clock_ns(), part); !e.empty()) {
             fail(kCmd, e);
             save_failed = true;
             return false;

@@ -16,7 +16,7 @@
 #include <map>
 #include <thread>
 
-#include "client/lib/recording.h"
+#include "daemon/io/recording.h"
 #include "daemon/io/fits_image.h"
 #include "slopecast/v1/frame.pb.h"
 #include "slopecast/v1/measurement.pb.h"
@@ -60,23 +60,23 @@ bit_depth = 16
 )";
 
 struct Contents {
-  std::vector<client::RecordedMessage> frames, measurements, truths;
+  std::vector<io::RecordedMessage> frames, measurements, truths;
   int damaged = 0, torn = 0;
 };
 
 Contents read_recording(const std::filesystem::path& path) {
-  auto opened = client::RecordingReader::open(path);
+  auto opened = io::RecordingReader::open(path);
   INFO(path);
-  REQUIRE(std::holds_alternative<std::unique_ptr<client::RecordingReader>>(opened));
-  auto& r = *std::get<std::unique_ptr<client::RecordingReader>>(opened);
+  REQUIRE(std::holds_alternative<std::unique_ptr<io::RecordingReader>>(opened));
+  auto& r = *std::get<std::unique_ptr<io::RecordingReader>>(opened);
   Contents c;
-  client::RecordedMessage m;
-  for (client::ReadOutcome o; (o = r.next(m)) != client::ReadOutcome::kEnd;) {
-    if (o == client::ReadOutcome::kTornTail) ++c.torn;
-    if (o == client::ReadOutcome::kCorrupt) ++c.damaged;
-    if (o != client::ReadOutcome::kRecord) continue;
-    (m.kind == client::RecordKind::kFrame ? c.frames
-     : m.kind == client::RecordKind::kTruth ? c.truths
+  io::RecordedMessage m;
+  for (io::ReadOutcome o; (o = r.next(m)) != io::ReadOutcome::kEnd;) {
+    if (o == io::ReadOutcome::kTornTail) ++c.torn;
+    if (o == io::ReadOutcome::kCorrupt) ++c.damaged;
+    if (o != io::ReadOutcome::kRecord) continue;
+    (m.kind == io::RecordKind::kFrame ? c.frames
+     : m.kind == io::RecordKind::kTruth ? c.truths
                                              : c.measurements)
         .push_back(m);
   }
@@ -384,18 +384,18 @@ TEST_CASE("a long recording rotates into numbered files that read back as one st
   REQUIRE(rec.wait(30s) == 0);
   std::uint64_t next_seq = 0, records = 0;
   unsigned parts = 0;
-  for (unsigned part = 0; std::filesystem::exists(client::rotated_path(out, part)); ++part) {
-    const auto path = client::rotated_path(out, part);
-    auto opened = client::RecordingReader::open(path);
-    REQUIRE(std::holds_alternative<std::unique_ptr<client::RecordingReader>>(opened));
-    auto& r = *std::get<std::unique_ptr<client::RecordingReader>>(opened);
+  for (unsigned part = 0; std::filesystem::exists(io::rotated_path(out, part)); ++part) {
+    const auto path = io::rotated_path(out, part);
+    auto opened = io::RecordingReader::open(path);
+    REQUIRE(std::holds_alternative<std::unique_ptr<io::RecordingReader>>(opened));
+    auto& r = *std::get<std::unique_ptr<io::RecordingReader>>(opened);
     CHECK(r.indexed());  // closed cleanly
     CHECK(r.header().part() == part);
     CHECK(r.header().first_record() == records);
     CHECK(r.header().width_px() == 96);
     if (part + 1 < 3) CHECK(std::filesystem::file_size(path) < 1048576 + 20000);  // one frame past the limit at most
-    client::RecordedMessage m;
-    while (r.next(m) == client::ReadOutcome::kRecord) {
+    io::RecordedMessage m;
+    while (r.next(m) == io::ReadOutcome::kRecord) {
       v1::FrameHeader fh;
       REQUIRE(fh.ParseFromString(m.parts[0]));
       CHECK(fh.seq() == next_seq);

@@ -1,4 +1,4 @@
-#include "client/lib/recording.h"
+#include "daemon/io/recording.h"
 
 #include <fcntl.h>
 #include <sys/uio.h>
@@ -10,7 +10,7 @@
 #include <fmt/format.h>
 #include <zlib.h>
 
-namespace slopecast::client {
+namespace slopecast::io {
 
 namespace {
 
@@ -367,4 +367,4 @@ ReadOutcome RecordingReader::next(RecordedMessage& out) {
   return ReadOutcome::kEnd;
 }
 
-}  // namespace slopecast::client
+}  // namespace slopecast::io

@@ -43,7 +43,7 @@
 
 #include "slopecast/v1/recording.pb.h"
 
-namespace slopecast::client {
+namespace slopecast::io {
 
 // kTruth: a FrameTruth (proto/slopecast/v1/recording.proto) from a simulator.
 enum class RecordKind : std::uint8_t { kFrame = 1, kMeasurement = 2, kIndex = 3, kTruth = 4 };
@@ -147,4 +147,4 @@ std::uint32_t crc32_of(std::span<const std::byte> bytes, std::uint32_t seed = 0)
 // "<stem>.0001.screc", ... for path "<stem>.screc".
 std::filesystem::path rotated_path(const std::filesystem::path& path, unsigned part);
 
-}  // namespace slopecast::client
+}  // namespace slopecast::io

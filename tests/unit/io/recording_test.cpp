@@ -1,4 +1,4 @@
-// The recording file (client/lib/recording.h): what goes in comes out
+// The recording file (daemon/io/recording.h): what goes in comes out
 // byte for byte, a cut-short file is read up to its last whole record, and
 // a flipped bit is caught by the checksum and named by record number.
 // The CRC itself is checked against the standard's check value.
@@ -7,13 +7,13 @@
 #include <fstream>
 #include <random>
 
-#include "client/lib/recording.h"
+#include "daemon/io/recording.h"
 #include "tests/support/temp_dir.h"
 
 using namespace slopecast;
-using client::ReadOutcome;
-using client::RecordedMessage;
-using client::RecordKind;
+using io::ReadOutcome;
+using io::RecordedMessage;
+using io::RecordKind;
 
 namespace {
 
@@ -41,9 +41,9 @@ std::filesystem::path write_recording(const std::filesystem::path& path, const s
   h.set_file_version(1);
   h.set_width_px(16);
   h.set_height_px(8);
-  auto made = client::RecordingWriter::create(path, h);
-  REQUIRE(std::holds_alternative<std::unique_ptr<client::RecordingWriter>>(made));
-  auto& w = std::get<std::unique_ptr<client::RecordingWriter>>(made);
+  auto made = io::RecordingWriter::create(path, h);
+  REQUIRE(std::holds_alternative<std::unique_ptr<io::RecordingWriter>>(made));
+  auto& w = std::get<std::unique_ptr<io::RecordingWriter>>(made);
   for (const auto& m : msgs) {
     std::vector<std::string_view> parts(m.parts.begin(), m.parts.end());
     REQUIRE(w->append(m.kind, m.received_ns, parts).empty());
@@ -59,9 +59,9 @@ struct ReadBack {
 };
 
 ReadBack read_all(const std::filesystem::path& path) {
-  auto opened = client::RecordingReader::open(path);
-  REQUIRE(std::holds_alternative<std::unique_ptr<client::RecordingReader>>(opened));
-  auto& r = std::get<std::unique_ptr<client::RecordingReader>>(opened);
+  auto opened = io::RecordingReader::open(path);
+  REQUIRE(std::holds_alternative<std::unique_ptr<io::RecordingReader>>(opened));
+  auto& r = std::get<std::unique_ptr<io::RecordingReader>>(opened);
   ReadBack b;
   RecordedMessage m;
   for (ReadOutcome o; (o = r->next(m)) != ReadOutcome::kEnd;) {
@@ -94,7 +94,7 @@ TEST_CASE("CRC-32 matches the standard check value") {
   // (the "check" value listed for CRC-32 in every CRC catalogue, e.g.
   // Williams, "A painless guide to CRC error detection algorithms", 1993).
   const std::string digits = "123456789";
-  CHECK(client::crc32_of(std::as_bytes(std::span(digits))) == 0xCBF43926u);
+  CHECK(io::crc32_of(std::as_bytes(std::span(digits))) == 0xCBF43926u);
 }
 
 TEST_CASE("a recording reads back byte for byte, with and without its index") {
@@ -107,8 +107,8 @@ TEST_CASE("a recording reads back byte for byte, with and without its index") {
   CHECK(back.torn == 0);
   CHECK(back.corrupt == 0);
 
-  auto opened = client::RecordingReader::open(path);
-  auto& r = std::get<std::unique_ptr<client::RecordingReader>>(opened);
+  auto opened = io::RecordingReader::open(path);
+  auto& r = std::get<std::unique_ptr<io::RecordingReader>>(opened);
   CHECK(r->indexed());
   CHECK(r->indexed_records() == msgs.size());
   CHECK(r->header().width_px() == 16);
@@ -122,8 +122,8 @@ TEST_CASE("a recording reads back byte for byte, with and without its index") {
   {
     v1::RecordingHeader h;
     h.set_file_version(1);
-    auto made = client::RecordingWriter::create(unclosed, h);
-    auto& w = std::get<std::unique_ptr<client::RecordingWriter>>(made);
+    auto made = io::RecordingWriter::create(unclosed, h);
+    auto& w = std::get<std::unique_ptr<io::RecordingWriter>>(made);
     for (const auto& mm : msgs) {
       std::vector<std::string_view> parts(mm.parts.begin(), mm.parts.end());
       REQUIRE(w->append(mm.kind, mm.received_ns, parts).empty());
@@ -134,8 +134,8 @@ TEST_CASE("a recording reads back byte for byte, with and without its index") {
   auto killed = read_all(dir.path() / "killed-copy.screc");
   CHECK(killed.records.size() == msgs.size());
   CHECK(killed.torn == 0);
-  auto o2 = client::RecordingReader::open(dir.path() / "killed-copy.screc");
-  CHECK_FALSE(std::get<std::unique_ptr<client::RecordingReader>>(o2)->indexed());
+  auto o2 = io::RecordingReader::open(dir.path() / "killed-copy.screc");
+  CHECK_FALSE(std::get<std::unique_ptr<io::RecordingReader>>(o2)->indexed());
 }
 
 TEST_CASE("a recording is never overwritten") {
@@ -143,7 +143,7 @@ TEST_CASE("a recording is never overwritten") {
   const auto path = write_recording(dir.path() / "run.screc", sample_messages(2, 1));
   v1::RecordingHeader h;
   h.set_file_version(1);
-  auto again = client::RecordingWriter::create(path, h);
+  auto again = io::RecordingWriter::create(path, h);
   REQUIRE(std::holds_alternative<std::string>(again));
   CHECK_THAT(std::get<std::string>(again), Catch::Contains("never overwritten"));
 }
@@ -156,8 +156,8 @@ TEST_CASE("a file cut at any byte of its last records is read up to its last who
   // Where each record ends: read the offsets back from a scan of prefixes.
   // Cut everywhere from the start of record 9 to the end of the file
   // (records 9..11, the index and the footer).
-  auto r = client::RecordingReader::open(path);
-  auto& reader = std::get<std::unique_ptr<client::RecordingReader>>(r);
+  auto r = io::RecordingReader::open(path);
+  auto& reader = std::get<std::unique_ptr<io::RecordingReader>>(r);
   REQUIRE(reader->seek(9));
   // The offset of record 9 is not exposed; find it as the first cut that
   // yields 9 whole records.
@@ -221,14 +221,14 @@ TEST_CASE("a flipped bit is caught by the checksum and reported with the record 
 TEST_CASE("not a recording, or a damaged header, is refused with a reason") {
   testing::TempDir dir;
   put_bytes(dir.path() / "x.screc", "SIMPLE  =                    T");
-  auto o = client::RecordingReader::open(dir.path() / "x.screc");
+  auto o = io::RecordingReader::open(dir.path() / "x.screc");
   REQUIRE(std::holds_alternative<std::string>(o));
   CHECK_THAT(std::get<std::string>(o), Catch::Contains("not a slopecast recording"));
   const auto path = write_recording(dir.path() / "ok.screc", sample_messages(1, 2));
   std::string b = file_bytes(path);
   b[14] = static_cast<char>(b[14] ^ 1);
   put_bytes(dir.path() / "h.screc", b);
-  auto o2 = client::RecordingReader::open(dir.path() / "h.screc");
+  auto o2 = io::RecordingReader::open(dir.path() / "h.screc");
   REQUIRE(std::holds_alternative<std::string>(o2));
   CHECK_THAT(std::get<std::string>(o2), Catch::Contains("checksum"));
 }
