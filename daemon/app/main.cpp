@@ -174,12 +174,21 @@ int main(int argc, char** argv) {
                  "0 if it is usable, 1 if not");
   cli.add_option("--log-level", log_level, "trace, debug, info, warn, error or off")
       ->check(CLI::IsMember({"trace", "debug", "info", "warn", "error", "off"}));
+  bool journal = false;
+  cli.add_flag("--journal", journal,
+               "Log for the systemd journal: each line starts with its syslog priority (<3> error, <4> warning, "
+               "<6> info, <7> debug) and no timestamp (the journal adds its own)");
   cli.add_flag_callback("--version", [] {
     std::cout << "slopecastd " << app::kVersion << "\n";
     std::exit(0);
   }, "Print the version and exit");
   CLI11_PARSE(cli, argc, argv);
   spdlog::set_level(spdlog::level::from_str(log_level));
+  if (journal) {
+    auto formatter = std::make_unique<spdlog::pattern_formatter>();
+    formatter->add_flag<app::SyslogPriorityFlag>('*').set_pattern("<%*>%v");
+    spdlog::set_formatter(std::move(formatter));
+  }
   slopecast::app::route_protobuf_logs();
 
   if (!check_path.empty()) {
