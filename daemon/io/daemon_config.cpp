@@ -387,3 +387,22 @@ std::variant<DaemonConfig, ConfigError> load_daemon_config(const std::filesystem
 }
 
 }  // namespace slopecast::io
+
+namespace slopecast::io {
+
+std::map<std::string, std::set<std::string>> accepted_config_keys() {
+  std::map<std::string, std::set<std::string>> keys;
+  TableReader::catalogue() = &keys;
+  // A minimal config: every table's reader looks up all of its keys whether
+  // or not they are present.
+  (void)parse_daemon_config("[camera]\nwidth_px = 16\nheight_px = 16\npixel_type = \"u16\"\n"
+                            "[lenslet_grid]\nsubapertures_x = 2\nsubapertures_y = 2\npitch_px = 8\n",
+                            "catalogue", ".", ConfigLoad{false});
+  TableReader::catalogue() = nullptr;
+  // [centroider] and [shadow] take the option table's keys.
+  for (const char* table : {"centroider", "shadow"})
+    for (const auto& o : core::kCentroiderOptions) keys[table].insert(std::string(o.key));
+  return keys;
+}
+
+}  // namespace slopecast::io

@@ -9,6 +9,7 @@
 
 #include <filesystem>
 #include <map>
+#include <set>
 #include <optional>
 #include <string>
 #include <variant>
@@ -153,5 +154,9 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
                                                             const std::string& source_name,
                                                             const std::filesystem::path& base_dir,
                                                             ConfigLoad what = {});
+
+// Every key the config parser accepts, by table ("endpoints", "camera",
+// ...): what the configuration reference in the README must list.
+std::map<std::string, std::set<std::string>> accepted_config_keys();
 
 }  // namespace slopecast::io

@@ -5,6 +5,7 @@
 
 #include <cmath>
 #include <cstdint>
+#include <map>
 #include <set>
 #include <string>
 
@@ -139,6 +140,14 @@ class TableReader {
     out = v->as_string().str;
     if (out.empty()) return fail(key, "is an empty path; leave the key out for none");
   }
+  // When set, every key any reader looks up is recorded here by table name:
+  // the catalogue of accepted keys (accepted_config_keys() in
+  // daemon_config.h) that the documentation is checked against.
+  static std::map<std::string, std::set<std::string>>*& catalogue() {
+    static std::map<std::string, std::set<std::string>>* c = nullptr;
+    return c;
+  }
+
   // After all reads: any key not read is an error.
   void reject_unknown() {
     if (!table_ || !error.empty()) return;
@@ -152,6 +161,7 @@ class TableReader {
  private:
   const toml::value* find(const char* key) {
     used_.insert(key);
+    if (catalogue()) (*catalogue())[name_].insert(key);
     if (!table_) return nullptr;
     const auto& t = table_->as_table();
     auto it = t.find(key);

@@ -9,6 +9,7 @@
 #include <cmath>
 #include <fstream>
 #include <map>
+#include <set>
 #include <sstream>
 #include <thread>
 
@@ -252,4 +253,62 @@ TEST_CASE("roundtrip times frames through the daemon and through a bare relay", 
   CHECK(s.frames_processed() >= 300u);
   CHECK(s.frames_processed() <= 350u);
   CHECK(s.frames_rejected() == 0u);
+}
+
+TEST_CASE("the README's command reference matches every --help", "[integration][cli]") {
+  // Options named in a CLI11 --help text: "  --name" or "  -x,--name" at the
+  // start of a line of its Options section.
+  auto help_options = [](const std::string& text) {
+    std::set<std::string> out;
+    std::istringstream in(text);
+    bool options = false;
+    for (std::string line; std::getline(in, line);) {
+      if (line.rfind("Options:", 0) == 0) options = true;
+      else if (options && !line.empty() && line[0] != ' ') options = false;
+      if (!options || line.rfind("  -", 0) != 0) continue;
+      const std::string names = line.substr(2, line.find(' ', 2) - 2);
+      const auto at = names.find("--");
+      if (at == std::string::npos) continue;
+      const std::string name = names.substr(at, names.find(',', at) - at);
+      if (name != "--help") out.insert(name);
+    }
+    return out;
+  };
+  // The README: "#### `slopecast NAME`" sections of "## Command reference",
+  // with rows "| `--option` | ...".
+  std::ifstream readme(std::string(SLOPECAST_SOURCE_DIR) + "/README.md");
+  REQUIRE(readme);
+  std::map<std::string, std::set<std::string>> documented;
+  std::string current;
+  bool inside = false;
+  for (std::string line; std::getline(readme, line);) {
+    if (line.rfind("## ", 0) == 0) inside = line == "## Command reference";
+    if (!inside) continue;
+    if (line.rfind("#### `", 0) == 0) current = line.substr(6, line.find('`', 6) - 6), documented[current];
+    else if (line.rfind("| `--", 0) == 0) documented[current].insert(line.substr(3, line.find('`', 3) - 3));
+  }
+  testing::TempDir dir;
+  auto help_of = [&](const std::string& program, std::vector<std::string> args) {
+    const auto log = dir / "help.log";
+    std::filesystem::remove(log);
+    args.push_back("--help");
+    testing::ChildProcess p(program, args, log);
+    REQUIRE(p.wait(10s) == 0);
+    return testing::read_log(log);
+  };
+  // Every subcommand slopecast lists, and slopecastd.
+  const std::string top = help_of(SLOPECAST_PATH, {});
+  std::vector<std::string> commands;
+  std::istringstream in(top.substr(top.find("Subcommands:")));
+  for (std::string line; std::getline(in, line);)
+    if (line.rfind("  ", 0) == 0) commands.push_back(line.substr(2, line.find(' ', 2) - 2));
+  REQUIRE(commands.size() >= 10);
+  for (const auto& c : commands) {
+    INFO("slopecast " << c);
+    REQUIRE(documented.count("slopecast " + c) == 1);
+    CHECK(documented["slopecast " + c] == help_options(help_of(SLOPECAST_PATH, {c})));
+  }
+  const std::string daemon_help = help_of(SLOPECASTD_PATH, {});
+  CHECK(documented["slopecastd"] == help_options(daemon_help.substr(0, daemon_help.find("\nConfig file (TOML)."))));
+  CHECK(documented.size() == commands.size() + 1);
 }

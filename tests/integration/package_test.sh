@@ -31,11 +31,15 @@ dpkg-deb --info "$deb" | grep -q "Depends: libzmq5"
 dpkg-deb -x "$deb" "$work/root"
 for f in usr/bin/slopecastd usr/bin/slopecast usr/lib/systemd/system/slopecastd@.service \
          usr/share/slopecast/examples/harrow_vale.toml usr/lib/python3/dist-packages/slopecast/__init__.py \
-         usr/lib/python3/dist-packages/slopecast/v1/measurement_pb2.py usr/lib/cmake/slopecast/slopecastConfig.cmake; do
+         usr/lib/python3/dist-packages/slopecast/v1/measurement_pb2.py usr/lib/cmake/slopecast/slopecastConfig.cmake \
+         usr/share/doc/slopecast/wire_reference.md; do
   [[ -e "$work/root/$f" ]] || { echo "missing from the .deb: $f"; exit 1; }
 done
 "$work/root/usr/bin/slopecastd" --help | grep -q "Config file (TOML)"
 "$work/root/usr/bin/slopecast" --help | grep -q "record"
+# The wire reference, generated from the .proto comments, with them in it.
+grep -q "Spot displacement from the subaperture" "$work/root/usr/share/doc/slopecast/wire_reference.md"
+grep -q "^### message FrameHeader" "$work/root/usr/share/doc/slopecast/wire_reference.md"
 "$work/root/usr/bin/slopecastd" --check-config "$work/root/usr/share/slopecast/examples/service.toml" >/dev/null
 PYTHONPATH="$work/root/usr/lib/python3/dist-packages" /usr/bin/python3 -c \
   "import slopecast; from slopecast.v1 import measurement_pb2; print('python package from the .deb:', slopecast.__name__)"

@@ -3,6 +3,8 @@
 
 #include <filesystem>
 #include <fstream>
+#include <map>
+#include <set>
 
 #include "daemon/io/daemon_config.h"
 #include "daemon/io/fits_image.h"
@@ -303,4 +305,36 @@ TEST_CASE("config text that is not UTF-8 or holds control characters is refused 
   CHECK_THAT(error_of(std::string(kGood) + "# no such lead byte \xf8\x88\x80\x80\n"), Catch::Contains("not valid UTF-8"));
   // Real UTF-8 and CRLF line ends are fine.
   CHECK(error_of(std::string(kGood) + "# Tarn Ridge \xe2\x80\x94 5.5 \xc2\xb5m, \xf0\x9f\x94\xad\r\n").empty());
+}
+
+TEST_CASE("the README's configuration reference lists exactly the keys the parser accepts") {
+  // Rows of the table under "## Configuration reference":
+  // | `[table]` (, `[table]`) | `key` | ...
+  std::ifstream in(std::string(SLOPECAST_SOURCE_DIR) + "/README.md");
+  REQUIRE(in);
+  std::map<std::string, std::set<std::string>> documented;
+  bool inside = false;
+  for (std::string line; std::getline(in, line);) {
+    if (line.rfind("## ", 0) == 0) inside = line == "## Configuration reference";
+    if (!inside || line.rfind("| `[", 0) != 0) continue;
+    const auto second = line.find(" | ", 2);
+    const std::string tables = line.substr(2, second - 2);
+    const auto key_start = line.find('`', second) + 1;
+    const std::string key = line.substr(key_start, line.find('`', key_start) - key_start);
+    for (std::size_t at = tables.find("`["); at != std::string::npos; at = tables.find("`[", at + 1))
+      documented[tables.substr(at + 2, tables.find("]`", at) - at - 2)].insert(key);
+  }
+  const auto accepted = io::accepted_config_keys();
+  CHECK(documented.size() >= 10);
+  for (const auto& [table, keys] : accepted)
+    for (const auto& key : keys) {
+      INFO("[" << table << "] " << key << " is accepted but not in the README's reference");
+      CHECK(documented[table].count(key) == 1);
+    }
+  for (const auto& [table, keys] : documented)
+    for (const auto& key : keys) {
+      INFO("[" << table << "] " << key << " is documented but the parser does not accept it");
+      CHECK(accepted.count(table) == 1);
+      if (accepted.count(table)) CHECK(accepted.at(table).count(key) == 1);
+    }
 }
