@@ -27,7 +27,9 @@ echo "== the Debian package"
 (cd "$work" && cpack -G DEB --config "$build/CPackConfig.cmake" -B "$work/deb" >"$work/cpack.log") ||
   { cat "$work/cpack.log"; exit 1; }
 deb="$(ls "$work"/deb/slopecast_*.deb)"
-dpkg-deb --info "$deb" | grep -q "Depends: libzmq5"
+# (grep -q on a here-string: in a pipe it may close early and, with
+# pipefail, fail the writer with SIGPIPE.)
+grep -q "Depends: libzmq5" <<<"$(dpkg-deb --info "$deb")"
 dpkg-deb -x "$deb" "$work/root"
 for f in usr/bin/slopecastd usr/bin/slopecast usr/lib/systemd/system/slopecastd@.service \
          usr/share/slopecast/examples/harrow_vale.toml usr/lib/python3/dist-packages/slopecast/__init__.py \
@@ -35,8 +37,8 @@ for f in usr/bin/slopecastd usr/bin/slopecast usr/lib/systemd/system/slopecastd@
          usr/share/doc/slopecast/wire_reference.md; do
   [[ -e "$work/root/$f" ]] || { echo "missing from the .deb: $f"; exit 1; }
 done
-"$work/root/usr/bin/slopecastd" --help | grep -q "Config file (TOML)"
-"$work/root/usr/bin/slopecast" --help | grep -q "record"
+grep -q "Config file (TOML)" <<<"$("$work/root/usr/bin/slopecastd" --help)"
+grep -q "record" <<<"$("$work/root/usr/bin/slopecast" --help)"
 # The wire reference, generated from the .proto comments, with them in it.
 grep -q "Spot displacement from the subaperture" "$work/root/usr/share/doc/slopecast/wire_reference.md"
 grep -q "^### message FrameHeader" "$work/root/usr/share/doc/slopecast/wire_reference.md"
