@@ -280,7 +280,7 @@ void run_record(RecordOptions o) {
   for (;;) {
     if (stop_requested()) break;
     if (writer_done || result.limit_reached) {
-      stop_reason = result.error.empty() ? "size limit reached" : "write failed";
+      stop_reason = "size limit reached";  // or a failed write: said after the writer has finished
       break;
     }
     if (o.max_frames && frames_queued >= o.max_frames) {
@@ -320,6 +320,7 @@ void run_record(RecordOptions o) {
   }
   queue.close();
   writer.join();
+  if (!result.error.empty()) stop_reason = "write failed";
   std::cout << fmt::format("{}: {} records in {} file(s), {} bytes{}\n", stop_reason, result.records,
                            result.files.size(), result.bytes,
                            result.files.empty() ? " (nothing arrived)" : ": " + fmt::format("{}", fmt::join(result.files, ", ")));
