@@ -108,7 +108,7 @@ struct WriterResult {
   std::string error;
   std::vector<std::string> files;
   std::uint64_t records = 0, bytes = 0;
-  std::atomic<bool> limit_reached{false};
+  std::atomic<bool> limit_reached{false};  // a size limit or a failed write: stop receiving
 };
 
 void run_record(RecordOptions o) {
@@ -191,6 +191,7 @@ void run_record(RecordOptions o) {
         auto made = io::RecordingWriter::create(path, header);
         if (auto* e = std::get_if<std::string>(&made)) {
           result.error = *e;
+          result.limit_reached = true;  // stops the receiving side too
           continue;
         }
         file = std::move(std::get<std::unique_ptr<io::RecordingWriter>>(made));
@@ -200,6 +201,7 @@ void run_record(RecordOptions o) {
       std::vector<std::string_view> parts(m.parts.begin(), m.parts.end());
       if (auto e = file->append(m.kind, m.received_ns, parts); !e.empty()) {
         result.error = e;
+        result.limit_reached = true;
         continue;
       }
       ++total_records;
