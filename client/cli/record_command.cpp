@@ -7,6 +7,8 @@
 // overflow. The recorder is an ordinary subscriber, so it never slows the
 // daemon: a subscriber that falls behind loses messages at its own ZeroMQ
 // queue, which the seq gaps count.
+#include <unistd.h>
+
 #include <atomic>
 #include <condition_variable>
 #include <deque>
@@ -129,6 +131,11 @@ void run_record(RecordOptions o) {
   const std::filesystem::path first_path = o.rotate_bytes ? io::rotated_path(o.out, 0) : std::filesystem::path(o.out);
   if (std::filesystem::exists(first_path))
     return fail(kCmd, fmt::format("'{}' exists; a recording is never overwritten", first_path.string()));
+  {
+    const auto dir = first_path.has_parent_path() ? first_path.parent_path() : std::filesystem::path(".");
+    if (!std::filesystem::is_directory(dir) || ::access(dir.c_str(), W_OK) != 0)
+      return fail(kCmd, fmt::format("cannot write in '{}' (no such folder, or no permission)", dir.string()));
+  }
   std::optional<client::CurveClient> curve;
   if (!load_keys(kCmd, o.keys, curve)) return;
 

@@ -454,4 +454,9 @@ TEST_CASE("bad scenarios, recordings and cubes are refused with a sentence and n
   CHECK(rec.wait(10s) == 2);
   CHECK_THAT(testing::read_log(dir / "rec.log"), Catch::Contains("never overwritten"));
   CHECK(testing::read_log(dir / "keep.screc") == "precious");
+  testing::ChildProcess nowhere(SLOPECAST_PATH, {"record", "--frames-from", "ipc:///tmp/none", "--out",
+                                                  (dir / "no-such-folder" / "x.screc").string()},
+                                dir / "nowhere.log");
+  CHECK(nowhere.wait(10s) == 2);
+  CHECK_THAT(testing::read_log(dir / "nowhere.log"), Catch::Contains("no such folder"));
 }
