@@ -90,6 +90,8 @@ void InsightWorker::offer(const core::FrameMeasurement& m, const core::ImageView
   s.fwhm_x.assign(m.fwhm_x_px.begin(), m.fwhm_x_px.end());
   s.fwhm_y.assign(m.fwhm_y_px.begin(), m.fwhm_y_px.end());
   s.flags.assign(m.flags.begin(), m.flags.end());
+  s.var_x.assign(m.slope_var_x_px2.begin(), m.slope_var_x_px2.end());
+  s.var_y.assign(m.slope_var_y_px2.begin(), m.slope_var_y_px2.end());
   const auto now = std::chrono::steady_clock::now();
   s.preview = settings_.preview_rate_hz > 0 && now >= next_preview_;
   if (s.preview)
@@ -221,6 +223,8 @@ void InsightWorker::analyse(Slot& s) {
   last_.fwhm_x = s.fwhm_x;
   last_.fwhm_y = s.fwhm_y;
   last_.flags = s.flags;
+  last_.var_x = s.var_x;
+  last_.var_y = s.var_y;
   analysed_.fetch_add(1, std::memory_order_relaxed);
 }
 
@@ -312,28 +316,20 @@ void InsightWorker::publish_reports(std::uint64_t seq) {
   {
     v1::NoiseReport r;
     r.set_frame_seq(last_.seq);
+    // The model's variances are the pipeline's own (the [camera] noise
+    // figures; published with every measurement too), from the last frame.
     const auto& method = geometry_.settings.centroider;
-    const bool modelled = method.kind == core::CentroiderKind::kCog || method.kind == core::CentroiderKind::kWeighted;
+    const bool modelled = geometry_.settings.gain_e_per_adu > 0 &&
+                          (method.kind == core::CentroiderKind::kCog || method.kind == core::CentroiderKind::kWeighted);
     r.set_model(modelled ? std::string(core::centroider_name(method.kind)) : std::string());
     std::vector<double> vx(n), vy(n);
     window_->temporal_variance(vx, vy);
     const double d = subaperture_m_ > 0 && nm_per_px_ > 0 ? subaperture_m_ : 1.0;
     const double to_px2 = subaperture_m_ > 0 && nm_per_px_ > 0 ? std::pow(d / (nm_per_px_ * 1e-9), 2) : 1.0;
+    const bool have_model = static_cast<int>(last_.var_x.size()) == n;
     for (int i = 0; i < n; ++i) {
-      double mx = 0, my = 0;
-      if (modelled && static_cast<int>(last_.flux.size()) == n && last_.flags[i] == 0) {
-        core::SpotNoiseInputs in;
-        in.photons_e = last_.flux[i] * settings_.gain_e_per_adu;
-        in.background_e_per_px = last_.background[i] * settings_.gain_e_per_adu;
-        in.read_noise_e = settings_.read_noise_e;
-        in.box_px = geometry_.boxes[i].width;
-        in.spot_sigma_px = last_.fwhm_x[i] / 2.3548;
-        mx = core::centroid_noise_variance(method, in);
-        in.spot_sigma_px = last_.fwhm_y[i] / 2.3548;
-        my = core::centroid_noise_variance(method, in);
-      }
-      r.add_model_variance_x_px2(std::isfinite(mx) ? static_cast<float>(mx) : 0.0f);
-      r.add_model_variance_y_px2(std::isfinite(my) ? static_cast<float>(my) : 0.0f);
+      r.add_model_variance_x_px2(have_model ? last_.var_x[i] : 0.0f);
+      r.add_model_variance_y_px2(have_model ? last_.var_y[i] : 0.0f);
       r.add_temporal_variance_x_px2(static_cast<float>(vx[i] * to_px2));
       r.add_temporal_variance_y_px2(static_cast<float>(vy[i] * to_px2));
     }

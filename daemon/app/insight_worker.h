@@ -66,7 +66,7 @@ class InsightWorker {
  private:
   struct Slot {
     std::uint64_t seq = 0;
-    std::vector<float> sx, sy, flux, background, fwhm_x, fwhm_y;
+    std::vector<float> sx, sy, flux, background, fwhm_x, fwhm_y, var_x, var_y;
     std::vector<std::uint32_t> flags;
     bool has_pixels = false, preview = false;
     std::vector<std::byte> pixels;  // rows packed

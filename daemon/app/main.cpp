@@ -36,6 +36,9 @@ relative to the config file.
   width_px   = 240                     columns (x)
   height_px  = 240                     rows (y)
   pixel_type = "u16"                   u8 | u16 | u32 | f32 (little-endian)
+  read_noise_e   = 3.0                 read noise, e- rms, and gain, e- per ADU: every
+  gain_e_per_adu = 1.0                 measurement then carries each slope's model
+                                       variance (slope_noise_var_x/y; gain 0: none)
 
   [lenslet_grid]                       boxes must lie inside the frame
   subapertures_x = 16
@@ -116,8 +119,6 @@ relative to the config file.
   outer_scale_m         = 25.0         L0 the r0 estimators assume
   sensing_wavelength_nm = 635          also give r0 and seeing at this wavelength (0: no)
   strehl_wavelength_nm  = 1650         Strehl estimate at this wavelength (0: none)
-  read_noise_e          = 3.0          the noise model's read noise, e- rms
-  gain_e_per_adu        = 1.0          the noise model's gain
   loop_closed           = false        true: slopes are loop residuals; r0 refused
   preview_rate_hz       = 1.0          previews for `slopecast snap` (0: none)
   preview_max_side_px   = 512          larger frames are binned down by a whole factor

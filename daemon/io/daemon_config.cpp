@@ -103,6 +103,8 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
   cam.integer("width_px", p.camera.width_px, 1, 16384);
   cam.integer("height_px", p.camera.height_px, 1, 16384);
   cam.string("pixel_type", pixel_type);
+  cam.number("read_noise_e", p.read_noise_e, 0.0);
+  cam.number("gain_e_per_adu", p.gain_e_per_adu, 0.0);
   cam.reject_unknown();
   if (!cam.error.empty()) return fail(cam.error);
   if (p.camera.width_px == 0 || p.camera.height_px == 0)
@@ -214,8 +216,6 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
     r.number("outer_scale_m", in.outer_scale_m, 0.01);
     r.number("sensing_wavelength_nm", in.sensing_wavelength_nm, 0.0);
     r.number("strehl_wavelength_nm", in.strehl_wavelength_nm, 0.0);
-    r.number("read_noise_e", in.read_noise_e, 0.0);
-    r.number("gain_e_per_adu", in.gain_e_per_adu, 1e-6);
     r.boolean("loop_closed", in.loop_closed);
     r.number("preview_rate_hz", in.preview_rate_hz, 0.0);
     r.integer("preview_max_side_px", in.preview_max_side_px, 16, 4096);

@@ -48,8 +48,6 @@ struct InsightSettings {
   double outer_scale_m = 25;         // L0 assumed by the r0 estimators
   double sensing_wavelength_nm = 0;  // for r0 and seeing at the sensing wavelength (0: 500 nm only)
   double strehl_wavelength_nm = 0;   // Strehl estimate at this wavelength (0: none)
-  double read_noise_e = 3.0;         // the noise model's detector
-  double gain_e_per_adu = 1.0;
   bool loop_closed = false;          // residual slopes: r0 refused
   double preview_rate_hz = 1.0;      // preview frames per second (0: none)
   int preview_max_side_px = 512;     // larger frames are binned down by a whole factor

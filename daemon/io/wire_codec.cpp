@@ -83,10 +83,14 @@ void encode_measurement(const core::FrameMeasurement& m, const MeasurementStamp&
   msg.set_n_subap_y(static_cast<std::uint32_t>(s.n_subap_y));
   copy_into(msg.mutable_slope_x(), m.slope_x_px);
   copy_into(msg.mutable_slope_y(), m.slope_y_px);
+  copy_into(msg.mutable_slope_noise_var_x(), m.slope_var_x_px2);
+  copy_into(msg.mutable_slope_noise_var_y(), m.slope_var_y_px2);
   if (s.units_per_px != 1.0) {
     const auto k = static_cast<float>(s.units_per_px);
     for (auto* f : {msg.mutable_slope_x(), msg.mutable_slope_y()})
       for (float& v : *f) v *= k;
+    for (auto* f : {msg.mutable_slope_noise_var_x(), msg.mutable_slope_noise_var_y()})
+      for (float& v : *f) v *= k * k;
   }
   copy_into(msg.mutable_flux_adu(), m.flux_adu);
   copy_into(msg.mutable_peak_adu(), m.peak_adu);

@@ -38,9 +38,9 @@ class DaemonHarness {
   [[nodiscard]] bool start(const std::string& body);
 
   client::ControlClient& control() { return *control_; }
-  // Latest status; fails the test if the daemon does not answer in 2 s.
+  // Latest status; fails the test if the daemon does not answer in 10 s.
   v1::StatusReply status();
-  // Polls status until measurement_subscribers >= n (up to 5 s).
+  // Polls status until measurement_subscribers >= n (up to 15 s).
   [[nodiscard]] bool wait_for_subscribers(unsigned n);
   // Sends a signal to the daemon.
   void signal(int sig) { daemon_->signal(sig); }

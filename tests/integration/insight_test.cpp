@@ -25,7 +25,7 @@ using namespace std::chrono_literals;
 namespace {
 
 std::string insight_config(const std::string& extra) {
-  return "[camera]\nwidth_px = 240\nheight_px = 240\npixel_type = \"u16\"\n"
+  return "[camera]\nwidth_px = 240\nheight_px = 240\npixel_type = \"u16\"\nread_noise_e = 3\ngain_e_per_adu = 1\n"
          "[lenslet_grid]\nsubapertures_x = 16\nsubapertures_y = 16\npitch_px = 15\n"
          "[daemon]\nframe_queue_depth = 16\nmeasurement_queue_depth = 1000\n"
          "[optics]\npixel_size_um = 10\nlenslet_focal_length_mm = 5.2\nlenslet_pitch_um = 150\n"

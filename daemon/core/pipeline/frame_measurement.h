@@ -64,6 +64,11 @@ struct FrameMeasurement {
   // contrast, Gaussian-fit reduced chi^2; 0 for the others.
   std::vector<float> quality;
   std::vector<std::uint32_t> flags;  // SubapertureFlag bits
+  // Each valid slope's variance from the live centroider's noise model
+  // (photon, background and read noise; centroid_noise.h), px^2; 0 where
+  // not valid or without a model (no camera gain, or a method without one).
+  std::vector<float> slope_var_x_px2;
+  std::vector<float> slope_var_y_px2;
   // Raw pixels of the box at or above the saturation level; 0 when the
   // check is off (f32 without saturation_adu).
   std::vector<std::uint32_t> saturated_pixels;
@@ -79,7 +84,7 @@ struct FrameMeasurement {
 
   void resize(int n) {
     for (auto* v : {&slope_x_px, &slope_y_px, &flux_adu, &peak_adu, &background_adu, &snr, &fwhm_x_px,
-                    &fwhm_y_px, &ellipticity, &quality})
+                    &fwhm_y_px, &ellipticity, &quality, &slope_var_x_px2, &slope_var_y_px2})
       v->assign(n, 0.0f);
     flags.assign(n, kFlagNone);
     saturated_pixels.assign(n, 0);

@@ -1,5 +1,7 @@
 #include "daemon/core/pipeline/pipeline.h"
 
+#include "daemon/core/centroid/centroid_noise.h"
+
 #include <algorithm>
 #include <cassert>
 #include <cmath>
@@ -415,11 +417,26 @@ void Pipeline::decide(FrameMeasurement& out) {
     if (flags != kFlagNone) {
       out.slope_x_px[i] = 0.0f;
       out.slope_y_px[i] = 0.0f;
+      out.slope_var_x_px2[i] = 0.0f;
+      out.slope_var_y_px2[i] = 0.0f;
       continue;
     }
     const double sx = e.x + offset_x_[i], sy = e.y + offset_y_[i];
     out.slope_x_px[i] = static_cast<float>(sx);
     out.slope_y_px[i] = static_cast<float>(sy);
+    if (s.gain_e_per_adu > 0.0) {
+      SpotNoiseInputs in;
+      in.photons_e = m.flux * s.gain_e_per_adu;
+      in.background_e_per_px = subtract ? b.level_adu * s.gain_e_per_adu : 0.0;
+      in.read_noise_e = s.read_noise_e;
+      in.box_px = p;
+      in.spot_sigma_px = fwhm_x / 2.3548;
+      const double vx = centroid_noise_variance(s.centroider, in);
+      in.spot_sigma_px = fwhm_y / 2.3548;
+      const double vy = centroid_noise_variance(s.centroider, in);
+      out.slope_var_x_px2[i] = std::isfinite(vx) ? static_cast<float>(vx) : 0.0f;
+      out.slope_var_y_px2[i] = std::isfinite(vy) ? static_cast<float>(vy) : 0.0f;
+    }
     sum_x2 += sx * sx;
     sum_y2 += sy * sy;
     sum_flux += m.flux;

@@ -111,6 +111,11 @@ struct PipelineSettings {
   // kFlagElongated; 0: off.
   double max_ellipticity = 0.0;
   CentroiderSettings centroider;
+  // The camera's noise, for each slope's model variance (centroid_noise.h):
+  // read noise, e- rms per pixel, and gain, e- per ADU. gain 0: no model
+  // (the variances are published as 0).
+  double read_noise_e = 0.0;
+  double gain_e_per_adu = 0.0;
 };
 
 // The raw level at which a pixel of this format counts as saturated by
