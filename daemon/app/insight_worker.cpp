@@ -319,8 +319,7 @@ void InsightWorker::publish_reports(std::uint64_t seq) {
     // The model's variances are the pipeline's own (the [camera] noise
     // figures; published with every measurement too), from the last frame.
     const auto& method = geometry_.settings.centroider;
-    const bool modelled = geometry_.settings.gain_e_per_adu > 0 &&
-                          (method.kind == core::CentroiderKind::kCog || method.kind == core::CentroiderKind::kWeighted);
+    const bool modelled = geometry_.settings.gain_e_per_adu > 0 && core::has_noise_model(method.kind);
     r.set_model(modelled ? std::string(core::centroider_name(method.kind)) : std::string());
     std::vector<double> vx(n), vy(n);
     window_->temporal_variance(vx, vy);

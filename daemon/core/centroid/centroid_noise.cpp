@@ -6,6 +6,10 @@
 
 namespace slopecast::core {
 
+bool has_noise_model(CentroiderKind kind) {
+  return kind == CentroiderKind::kCog || kind == CentroiderKind::kWeighted;
+}
+
 double centroid_noise_variance(const CentroiderSettings& method, const SpotNoiseInputs& in) {
   const double nan = std::numeric_limits<double>::quiet_NaN();
   if (!(in.photons_e > 0)) return nan;

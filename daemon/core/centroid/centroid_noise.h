@@ -29,6 +29,9 @@ struct SpotNoiseInputs {
   int box_px = 0;                 // box side, px
 };
 
+// True for the methods with a model here (cog, wcog).
+bool has_noise_model(CentroiderKind kind);
+
 // Model variance of one slope, px^2; NaN when the method has no model or
 // the flux is not positive.
 double centroid_noise_variance(const CentroiderSettings& method, const SpotNoiseInputs& in);

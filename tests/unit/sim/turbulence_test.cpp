@@ -17,6 +17,7 @@
 #include "client/sim/lenslet_imaging.h"
 #include "client/sim/phase_screen.h"
 #include "client/sim/turbulence_sim.h"
+#include "daemon/core/modal/turbulence_statistics.h"
 #include "daemon/core/modal/zernike.h"
 
 using namespace slopecast;
@@ -100,21 +101,10 @@ std::pair<double, double> tilt_coefficients(const std::vector<double>& ph, int n
 }
 
 // Expected variance of one tilt coefficient over a pupil of diameter D:
-// int d^2f Phi(f) |Q(f)|^2 with Noll's filter for n = 1, m = 1 averaged over
-// direction, |Q|^2 = 2 (2 J2(pi D f) / (pi D f))^2 (Noll 1976, eq. 7-9).
+// Noll's filter integral (core::zernike_variance_coefficient, Noll 1976,
+// eq. 7-9), scaled by (D/r0)^(5/3).
 double tilt_variance(double D, double r0, double L0) {
-  const int steps = 20000;
-  // From far below both 1/D and 1/L0 (the integrand falls as f^(1/3) below
-  // 1/D for Kolmogorov and as f^3 below 1/L0) to far above 1/D.
-  const double u0 = std::log(std::min(1e-9 / D, 1e-3 / L0)), u1 = std::log(1e3 / D), h = (u1 - u0) / steps;
-  auto g = [&](double u) {
-    const double f = std::exp(u), x = pi * D * f;
-    const double q = 2 * std::cyl_bessel_j(2.0, x) / x;
-    return f * 2 * pi * f * sim::von_karman_psd(f, r0, L0) * 2 * q * q;
-  };
-  double sum = g(u0) + g(u1);
-  for (int i = 1; i < steps; ++i) sum += g(u0 + i * h) * (i % 2 ? 4 : 2);
-  return sum * h / 3;
+  return core::zernike_variance_coefficient(2, L0 / D) * std::pow(D / r0, 5.0 / 3.0);
 }
 
 double half_max_width(const std::vector<double>& profile) {
