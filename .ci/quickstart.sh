@@ -28,6 +28,7 @@ packages=(
   libeigen3-dev catch2 libbenchmark-dev
   libopencv-core-dev libopencv-imgproc-dev libopencv-imgcodecs-dev
   libcfitsio-dev libspdlog-dev libfmt-dev libcli11-dev libtoml11-dev zlib1g-dev
+  nlohmann-json3-dev libssl-dev gnuplot-nox
 )
 # Test mode only: the tests read our FITS files with an independent
 # implementation (astropy), run the Python client (client/python: zmq,

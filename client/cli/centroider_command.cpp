@@ -3,7 +3,6 @@
 // change them (checked as a whole by the daemon and applied between two
 // frames, or refused with the running settings unchanged);
 // --capture-reference takes a correlation reference from the live frames.
-#include <charconv>
 #include <iostream>
 #include <memory>
 
@@ -33,21 +32,6 @@ struct CentroiderOptions {
   double timeout_s = 2.0;
 };
 
-// "key=value": true/false are flags, a whole-string number is a number,
-// anything else is text (quotes optional).
-std::optional<std::pair<std::string, core::OptionValue>> parse_assignment(const std::string& text) {
-  const auto eq = text.find('=');
-  if (eq == std::string::npos || eq == 0) return std::nullopt;
-  std::string key = text.substr(0, eq), value = text.substr(eq + 1);
-  if (value == "true" || value == "false") return std::pair{key, core::OptionValue(value == "true")};
-  double number = 0.0;
-  const auto [end, ec] = std::from_chars(value.data(), value.data() + value.size(), number);
-  if (ec == std::errc() && end == value.data() + value.size() && !value.empty())
-    return std::pair{key, core::OptionValue(number)};
-  if (value.size() >= 2 && value.front() == '"' && value.back() == '"') value = value.substr(1, value.size() - 2);
-  return std::pair{key, core::OptionValue(value)};
-}
-
 void run_centroider(CentroiderOptions o) {
   zmq::context_t ctx(1);
   const auto connection = connect_control(kCmd, ctx, o.config, o.control, o.keys);
@@ -56,7 +40,7 @@ void run_centroider(CentroiderOptions o) {
   auto* set = request.mutable_set_centroider();
   if (!o.method.empty()) io::to_wire("method", core::OptionValue(o.method), *set->add_options());
   for (const std::string& a : o.set) {
-    const auto kv = parse_assignment(a);
+    const auto kv = core::parse_option_assignment(a);
     if (!kv) return fail(kCmd, fmt::format("--set '{}': expected key=value, e.g. --set weight_sigma_px=2", a));
     io::to_wire(kv->first, kv->second, *set->add_options());
   }

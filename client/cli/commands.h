@@ -30,6 +30,7 @@ void add_record_command(CLI::App& app);
 void add_replay_command(CLI::App& app);
 void add_export_command(CLI::App& app);
 void add_snap_command(CLI::App& app);
+void add_eval_command(CLI::App& app);
 
 // --client-key / --server-key, for a daemon running with [security].
 struct KeyOptions {

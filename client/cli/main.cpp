@@ -30,7 +30,18 @@ const std::string& invocation() { return invocation_text(); }
 void set_invocation(int argc, char** argv) {
   std::string& t = invocation_text();
   t = "slopecast";
-  for (int i = 1; i < argc; ++i) t += std::string(" ") + argv[i];
+  // Arguments with spaces or shell characters are single-quoted, so the
+  // text can be pasted back into a shell.
+  for (int i = 1; i < argc; ++i) {
+    const std::string a = argv[i];
+    if (!a.empty() && a.find_first_of(" \t\n'\"$`\\*?[]|&;<>(){}#~") == std::string::npos) {
+      t += " " + a;
+      continue;
+    }
+    t += " '";
+    for (char c : a) t += c == '\'' ? std::string("'\\''") : std::string(1, c);
+    t += "'";
+  }
 }
 bool stop_requested() { return g_stop_signal.load() != 0; }
 int stopped_exit_code() { return 128 + g_stop_signal.load(); }
@@ -46,7 +57,7 @@ int main(int argc, char** argv) {
   sigaction(SIGTERM, &sa, nullptr);
   set_invocation(argc, argv);
   CLI::App app{"slopecast: simulate a lenslet camera; watch, query and calibrate slopecastd; record, replay and "
-               "export streams."};
+               "export streams; score centroiders."};
   app.require_subcommand(1);
   add_sim_command(app);
   add_watch_command(app);
@@ -60,6 +71,7 @@ int main(int argc, char** argv) {
   add_replay_command(app);
   add_export_command(app);
   add_snap_command(app);
+  add_eval_command(app);
   CLI11_PARSE(app, argc, argv);
   if (stop_requested() && exit_code() == 0) exit_code() = stopped_exit_code();
   return exit_code();

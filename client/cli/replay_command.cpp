@@ -15,6 +15,7 @@
 #include "client/lib/frame_publisher.h"
 #include "client/lib/measurement_subscriber.h"
 #include "client/lib/measurement_tally.h"
+#include "client/cli/frame_source.h"
 #include "daemon/io/recording.h"
 #include "daemon/io/fits_image.h"
 #include "daemon/io/wire_codec.h"
@@ -44,120 +45,6 @@ struct ReplayOptions {
   KeyOptions keys;
 };
 
-bool is_fits(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  char head[9] = {};
-  in.read(head, 8);
-  return std::string(head) == "SIMPLE  ";
-}
-
-// One frame to send: its header part as recorded (or made) and its pixels.
-struct Frame {
-  std::string header;
-  std::string pixels;
-  std::uint64_t seq = 0;
-  std::uint64_t time_ns = 0;  // camera time (or the recorder's receive time)
-};
-
-// Where frames come from: a series of recordings, or a FITS cube.
-class FrameSource {
- public:
-  virtual ~FrameSource() = default;
-  // Next frame; false at the end. Problems (damage, torn tails) are printed.
-  virtual bool next(Frame& f) = 0;
-  virtual void rewind() = 0;
-  virtual std::string describe() const = 0;
-};
-
-class RecordingSource : public FrameSource {
- public:
-  explicit RecordingSource(std::vector<std::string> files) : files_(std::move(files)) {}
-  bool next(Frame& f) override {
-    for (;;) {
-      if (!reader_) {
-        if (index_ >= files_.size()) return false;
-        auto opened = io::RecordingReader::open(files_[index_++]);
-        if (auto* e = std::get_if<std::string>(&opened)) {
-          std::cerr << "slopecast replay: " << *e << "; skipped\n";
-          ++problems_;
-          continue;
-        }
-        reader_ = std::move(std::get<std::unique_ptr<io::RecordingReader>>(opened));
-      }
-      io::RecordedMessage m;
-      const auto outcome = reader_->next(m);
-      if (outcome == io::ReadOutcome::kEnd) {
-        reader_.reset();
-        continue;
-      }
-      if (outcome != io::ReadOutcome::kRecord) {
-        std::cerr << "slopecast replay: warning: " << reader_->problem() << "\n";
-        ++problems_;
-        continue;
-      }
-      if (m.kind != io::RecordKind::kFrame || m.parts.size() != 2) continue;
-      v1::FrameHeader h;
-      if (!h.ParseFromString(m.parts[0])) continue;
-      f.header = std::move(m.parts[0]);
-      f.pixels = std::move(m.parts[1]);
-      f.seq = h.seq();
-      f.time_ns = h.camera_time_ns() ? h.camera_time_ns() : m.received_ns;
-      return true;
-    }
-  }
-  void rewind() override {
-    reader_.reset();
-    index_ = 0;
-  }
-  std::string describe() const override { return fmt::format("{} recording file(s)", files_.size()); }
-  std::uint64_t problems() const { return problems_; }
-
- private:
-  std::vector<std::string> files_;
-  std::size_t index_ = 0;
-  std::unique_ptr<io::RecordingReader> reader_;
-  std::uint64_t problems_ = 0;
-};
-
-class CubeSource : public FrameSource {
- public:
-  CubeSource(std::unique_ptr<io::FitsFrameReader> cube, std::string source_id, std::string path)
-      : cube_(std::move(cube)), path_(std::move(path)) {
-    header_ = client::make_frame_header(0, 0, cube_->width(), cube_->height(), io::to_wire(cube_->format()));
-    header_.set_source_id(source_id);
-    bytes_.resize(static_cast<std::size_t>(cube_->width()) * cube_->height() * core::bytes_per_pixel(cube_->format()));
-  }
-  bool next(Frame& f) override {
-    if (plane_ >= cube_->planes()) return false;
-    if (auto e = cube_->read_plane(plane_, std::as_writable_bytes(std::span(bytes_))); !e.empty()) {
-      std::cerr << "slopecast replay: " << e << "\n";
-      error_ = true;
-      return false;
-    }
-    header_.set_seq(static_cast<std::uint64_t>(plane_));
-    f.header = header_.SerializeAsString();
-    f.pixels.assign(bytes_.data(), bytes_.size());
-    f.seq = static_cast<std::uint64_t>(plane_);
-    f.time_ns = 0;
-    ++plane_;
-    return true;
-  }
-  void rewind() override { plane_ = 0; }
-  std::string describe() const override {
-    return fmt::format("FITS cube {} ({} x {} x {}, BITPIX {} as {})", path_, cube_->width(), cube_->height(),
-                       cube_->planes(), cube_->bitpix(), core::pixel_format_name(cube_->format()));
-  }
-  bool error() const { return error_; }
-
- private:
-  std::unique_ptr<io::FitsFrameReader> cube_;
-  std::string path_;
-  v1::FrameHeader header_;
-  std::vector<char> bytes_;
-  long plane_ = 0;
-  bool error_ = false;
-};
-
 void run_replay(ReplayOptions o) {
   std::string config_measurements, config_control;
   if (!o.config.empty()) {
@@ -178,7 +65,7 @@ void run_replay(ReplayOptions o) {
   if (cube) {
     auto opened = io::FitsFrameReader::open(o.inputs[0]);
     if (auto* e = std::get_if<io::FitsError>(&opened)) return fail(kCmd, e->message);
-    source = std::make_unique<CubeSource>(std::move(std::get<std::unique_ptr<io::FitsFrameReader>>(opened)),
+    source = std::make_unique<CubeSource>(kCmd, std::move(std::get<std::unique_ptr<io::FitsFrameReader>>(opened)),
                                           o.source_id, o.inputs[0]);
     if (o.rate_hz == 0 && !o.flow) o.rate_hz = 100;
   } else {
@@ -188,7 +75,7 @@ void run_replay(ReplayOptions o) {
       auto opened = io::RecordingReader::open(in);
       if (auto* e = std::get_if<std::string>(&opened)) return fail(kCmd, *e);
     }
-    source = std::make_unique<RecordingSource>(o.inputs);
+    source = std::make_unique<RecordingSource>(kCmd, o.inputs);
   }
   const bool renumber = o.renumber || o.loops != 1;
   std::optional<client::CurveClient> curve;

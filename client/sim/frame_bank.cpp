@@ -1,26 +1,21 @@
 #include "client/sim/frame_bank.h"
 
+#include "client/sim/frame_maker.h"
+
 namespace slopecast::sim {
 
 FrameBank make_frame_bank(const SpotFieldSettings& field, const DetectorModel& detector,
                           const core::CameraSpec& camera, double background_e_per_px, int count,
                           std::uint64_t seed, const KeepGoing& keep_going) {
-  std::mt19937_64 rng(seed);
+  SpotFrameMaker maker(field, detector, camera, background_e_per_px, seed);
   FrameBank bank;
   bank.camera = camera;
   bank.frames.reserve(count);
   bank.truth.reserve(count);
-  const bool integer = camera.format != core::PixelFormat::kF32;
-  std::vector<double> adu;
+  SubapertureTruth truth;
   for (int k = 0; k < count && keep_going(); ++k) {
-    SpotOffsets offsets = draw_offsets(field, rng);
-    std::vector<double> expected = render_spot_field(field, offsets, camera.width_px, camera.height_px);
-    if (background_e_per_px > 0.0)
-      for (double& v : expected) v += background_e_per_px;
-    adu.resize(expected.size());
-    expose_adu(expected, detector, rng, adu, integer);
-    bank.frames.push_back(encode_pixels(adu, camera.format));
-    bank.truth.push_back(std::move(offsets));
+    maker.make(static_cast<std::uint64_t>(k), bank.frames.emplace_back(), truth);
+    bank.truth.push_back(SpotOffsets{std::move(truth.dx_px), std::move(truth.dy_px)});
   }
   return bank;
 }
@@ -43,16 +38,12 @@ FrameBank make_static_bank(const std::vector<double>& expected_e, const Detector
 FrameBank make_turbulence_bank(TurbulenceSim& simulator, const DetectorModel& detector,
                                const core::CameraSpec& camera, int count, std::uint64_t seed,
                                const KeepGoing& keep_going) {
-  std::mt19937_64 rng(seed);
+  TurbulenceFrameMaker maker(simulator, detector, camera, seed);
   FrameBank bank;
   bank.camera = camera;
-  const bool integer = camera.format != core::PixelFormat::kF32;
-  std::vector<double> expected(static_cast<std::size_t>(camera.width_px) * camera.height_px), adu(expected.size());
   SubapertureTruth truth;
   for (int k = 0; k < count && keep_going(); ++k) {
-    simulator.render(static_cast<std::uint64_t>(k), expected, camera.width_px, camera.height_px, truth);
-    expose_adu(expected, detector, rng, adu, integer);
-    bank.frames.push_back(encode_pixels(adu, camera.format));
+    maker.make(static_cast<std::uint64_t>(k), bank.frames.emplace_back(), truth);
     bank.truth.push_back(SpotOffsets{truth.dx_px, truth.dy_px});
     bank.illuminated.push_back(truth.illuminated);
   }

@@ -36,4 +36,21 @@ bool has_noise_model(CentroiderKind kind);
 // the flux is not positive.
 double centroid_noise_variance(const CentroiderSettings& method, const SpotNoiseInputs& in);
 
+// The Cramer-Rao lower bound on the variance of any unbiased estimate of a
+// spot's x position, px^2 (Winick 1986, JOSA A 3, 1809): a pixel-integrated
+// Gaussian of rms spot_sigma_px carrying photons_e, on background_e_per_px,
+// in a box_px x box_px box, each pixel's count Poisson plus Gaussian read
+// noise, the sum taken as Gaussian of variance mean + read_noise^2 (the
+// usual approximation, Winick's eq. for a CCD). The Fisher information for
+// x is
+//   F = sum_pixels (d mu_i / d x0)^2 / (mu_i + b + sigma_e^2),
+// mu_i the pixel's expected photo-electrons. The bound depends on where
+// the spot sits on the pixel grid; this is 1/F averaged over `phases`
+// sub-pixel positions evenly spread over one pixel in x, the spot centred
+// in y (an unknown flux, width or y position adds nothing: their
+// derivatives are even in x - x0 where d mu/d x0 is odd, so the Fisher
+// matrix is block diagonal for a spot centred in the box). NaN when
+// photons_e is not positive.
+double cramer_rao_variance(const SpotNoiseInputs& in, int phases = 8);
+
 }  // namespace slopecast::core

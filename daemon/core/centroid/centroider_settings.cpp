@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <array>
+#include <charconv>
 #include <cmath>
 
 #include <fmt/format.h>
@@ -177,6 +178,21 @@ std::string apply_option(CentroiderSettings& s, std::string_view key, const Opti
   std::string keys;
   for (const CentroiderOption& o : kOptions) keys += fmt::format("{}{}", keys.empty() ? "" : ", ", o.key);
   return fmt::format("unknown centroider option '{}' (known: {})", key, keys);
+}
+
+OptionValue parse_option_value(std::string_view value) {
+  if (value == "true" || value == "false") return OptionValue(value == "true");
+  double number = 0.0;
+  const auto [end, ec] = std::from_chars(value.data(), value.data() + value.size(), number);
+  if (ec == std::errc() && end == value.data() + value.size() && !value.empty()) return OptionValue(number);
+  if (value.size() >= 2 && value.front() == '"' && value.back() == '"') value = value.substr(1, value.size() - 2);
+  return OptionValue(std::string(value));
+}
+
+std::optional<std::pair<std::string, OptionValue>> parse_option_assignment(std::string_view text) {
+  const auto eq = text.find('=');
+  if (eq == std::string_view::npos || eq == 0) return std::nullopt;
+  return std::pair{std::string(text.substr(0, eq)), parse_option_value(text.substr(eq + 1))};
 }
 
 std::vector<std::pair<std::string, OptionValue>> list_options(const CentroiderSettings& s) {

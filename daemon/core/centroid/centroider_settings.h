@@ -92,6 +92,12 @@ std::string apply_option(CentroiderSettings& s, std::string_view key, const Opti
 // A value as written in the config: 2.5, true, "wcog".
 std::string format_option(const OptionValue& value);
 
+// A value as typed on a command line: true/false are flags, a whole-string
+// number is a number, anything else (quotes removed) is text.
+OptionValue parse_option_value(std::string_view text);
+// "key=value" (value as above); nullopt without a key and an '='.
+std::optional<std::pair<std::string, OptionValue>> parse_option_assignment(std::string_view text);
+
 // Every option's current value, in kCentroiderOptions order, "method" first.
 std::vector<std::pair<std::string, OptionValue>> list_options(const CentroiderSettings& s);
 
