@@ -8,6 +8,7 @@
 
 #include "client/sim/spot_image.h"
 #include "daemon/core/centroid/centroid_cog.h"
+#include "daemon/core/centroid/centroid_noise.h"
 #include "daemon/core/centroid/centroid_gaussian_fit.h"
 #include "daemon/core/centroid/centroid_quad_cell.h"
 #include "daemon/core/centroid/centroid_thresholded.h"
@@ -291,4 +292,42 @@ TEST_CASE("Gaussian fit error is within 1.3x the Cramér–Rao bound at 100, 100
     // And not below it by more than the statistics allow (a test bug would).
     CHECK(ratio_x > 0.9);
   }
+}
+
+TEST_CASE("the Cramér–Rao bound in core equals the independent six-parameter bound and its continuum limit",
+          "[centroid][noise]") {
+  // core::cramer_rao_variance (analytic derivatives, x alone) against
+  // cramer_rao_x above (central differences, x0, y0, N, sx, sy and a
+  // constant together) for a spot centred in its box: by symmetry the
+  // nuisance parameters add nothing there (derived), so the two agree to
+  // the finite differences' accuracy.
+  for (const double read_e : {0.0, 3.0}) {
+    for (const double photons : {100.0, 1000.0, 10000.0}) {
+      const int n = 11;
+      const double sigma = 1.0;
+      core::SpotNoiseInputs in;
+      in.photons_e = photons;
+      in.read_noise_e = read_e;
+      in.spot_sigma_px = sigma;
+      in.box_px = n;
+      const double ours = core::cramer_rao_variance(in, 1);
+      const double independent = cramer_rao_x(n, (n - 1) / 2.0, (n - 1) / 2.0, sigma, photons, read_e);
+      INFO("read noise " << read_e << ", " << photons << " photons");
+      CHECK(ours == Approx(independent).epsilon(1e-4));
+    }
+  }
+  // A wide spot on fine pixels without read noise: the Fisher information of
+  // a Gaussian's mean, N / sigma^2 (derived; checks R1.6), to 1 % (the
+  // pixels' own width adds about 1/(12 sigma^2) = 0.5 %).
+  core::SpotNoiseInputs wide;
+  wide.photons_e = 1000;
+  wide.spot_sigma_px = 4.0;
+  wide.box_px = 41;
+  CHECK(core::cramer_rao_variance(wide) == Approx(16.0 / 1000).epsilon(0.01));
+  // Read noise only raises it; no light, no bound.
+  core::SpotNoiseInputs noisy = wide;
+  noisy.read_noise_e = 5;
+  CHECK(core::cramer_rao_variance(noisy) > core::cramer_rao_variance(wide));
+  wide.photons_e = 0;
+  CHECK(std::isnan(core::cramer_rao_variance(wide)));
 }
