@@ -517,12 +517,14 @@ void run_eval(EvalOptions o) {
           std::make_unique<sim::SpotFrameMaker>(field, detector, camera, o.background_e, o.seed + pi, rule), camera,
           o.frames);
       if (o.spots && !o.noiseless) {
-        // Theory for this light: integer pixels add 1/12 ADU^2 of
-        // quantisation noise to each pixel's read noise (derived; gain 1).
+        // Theory for this light. Integer pixels add 1/12 ADU^2 of
+        // quantisation noise to each pixel's read noise when there is read
+        // noise to round; without it, at 1 e-/ADU, the photo-electron counts
+        // are whole ADU already and rounding adds nothing (derived).
         core::SpotNoiseInputs in;
         in.photons_e = spec.photons;
         in.background_e_per_px = o.background_e;
-        const double q = camera.format == core::PixelFormat::kF32 ? 0.0 : 1.0 / 12.0;
+        const double q = camera.format == core::PixelFormat::kF32 || spec.read_noise == 0 ? 0.0 : 1.0 / 12.0;
         in.read_noise_e = std::sqrt(spec.read_noise * spec.read_noise + q);
         in.spot_sigma_px = o.spot_sigma_px;
         in.box_px = grid.pitch_px;

@@ -36,7 +36,11 @@ AxisFigures axis_figures(const std::map<int, LineSums>& bins, const ScoringSetti
   }
   f.gain = (fit.tm - fit.t * fit.m / fit.n) / var_t;
   f.offset_px = (fit.m - f.gain * fit.t) / fit.n;
-  for (int d = 0;; ++d) {
+  // Outward from 0, both signs together; empty bins neither end the range
+  // nor extend it.
+  int outermost = 0;
+  for (const auto& [k, b] : bins) outermost = std::max(outermost, k >= 0 ? k : -k - 1);
+  for (int d = 0; d <= outermost; ++d) {
     bool any = false, within = true;
     for (int k : {d, -d - 1}) {
       auto it = bins.find(k);
@@ -45,7 +49,8 @@ AxisFigures axis_figures(const std::map<int, LineSums>& bins, const ScoringSetti
       if (std::sqrt(std::max(0.0, it->second.mean_square_about(f.gain, f.offset_px))) > s.linear_tolerance_px)
         within = false;
     }
-    if (!any || !within) break;
+    if (!any) continue;
+    if (!within) break;
     f.linear_range_px = (d + 1) * s.bin_px;
   }
   return f;
