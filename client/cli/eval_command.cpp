@@ -709,7 +709,7 @@ void add_eval_command(CLI::App& app) {
   cmd->add_option("--gain-within-px", o->scoring.gain_within_px, "The response gain is fitted over |true| up to this, px")
       ->check(CLI::Range(1e-3, 1000.0))->capture_default_str();
   cmd->add_option("--linear-tolerance-px", o->scoring.linear_tolerance_px,
-                  "The linear range ends where a bin's rms departure from the fitted line exceeds this, px")
+                  "The linear range ends at the first bin (from 0 outward) whose mean departs from the fitted line by more, px")
       ->check(CLI::Range(1e-6, 100.0))->capture_default_str();
   cmd->add_option("--rank-by", o->rank_by,
                   "Figure of merit: rms, bias, noise, valid, time, agreement (default: rms with truth, noise without)");

@@ -453,7 +453,7 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
   std::vector<Plot> plots;
   const std::string head =
       "set terminal svg size 760,500 dynamic noenhanced font 'sans,11' background '#ffffff'\n"
-      "set border lw 1 lc rgb '#444444'\nset grid lc rgb '#dddddd'\nset key below box lc rgb '#bbbbbb'\n";
+      "set border lw 1 lc rgb '#444444'\nset grid lc rgb '#dddddd'\nset key below Left reverse box lc rgb '#bbbbbb'\n";
   auto draw = [&](const std::string& name, const std::string& body) -> std::string {
     const auto script = plot_dir / (name + ".gp");
     std::ofstream gp(script);
@@ -522,7 +522,8 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
     for (std::size_t r = 0; r < shown_candidates; ++r) {
       const std::size_t c = order[r];
       body += fmt::format("$r{} << EOD\n", r);
-      for (const auto& q : p.results[c].response_x) body += fmt::format("{} {}\n", q.true_px, q.measured_px - q.true_px);
+      for (const auto& q : p.results[c].response_x)
+        if (q.samples >= 10) body += fmt::format("{} {}\n", q.true_px, q.measured_px - q.true_px);
       body += "EOD\n";
       plot_cmd += fmt::format("$r{} with linespoints lw 2 pt 7 ps 0.5 lc rgb '{}' title {}, ", r, kPalette[r % 8],
                               gp_text(run.candidates[c].label));
@@ -532,7 +533,8 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
             gp_text("response, " + p.label) + "\n" + plot_cmd + "\n";
     if (auto e = draw("response", body); !e.empty()) return e;
     plots.push_back({"response", "Response (x)",
-                     fmt::format("Mean measured minus true slope in bins of true shift, {}. Input: {}", p.label, input_line)});
+                     fmt::format("Mean measured minus true slope in bins of true shift (bins of at least 10 samples), {}. Input: {}",
+                                 p.label, input_line)});
     break;
   }
   // 3. Error by flux level (first point with truth and more than one bin).

@@ -9,6 +9,9 @@ namespace slopecast::eval {
 namespace {
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+// Bins with fewer samples neither end nor extend the linear range: their
+// mean is too noisy to judge a bend by.
+constexpr double kMinBinSamples = 10;
 
 double median_of(std::vector<double> v) {
   std::erase_if(v, [](double x) { return !std::isfinite(x); });
@@ -44,10 +47,10 @@ AxisFigures axis_figures(const std::map<int, LineSums>& bins, const ScoringSetti
     bool any = false, within = true;
     for (int k : {d, -d - 1}) {
       auto it = bins.find(k);
-      if (it == bins.end() || it->second.n == 0) continue;
+      if (it == bins.end() || it->second.n < kMinBinSamples) continue;
       any = true;
-      if (std::sqrt(std::max(0.0, it->second.mean_square_about(f.gain, f.offset_px))) > s.linear_tolerance_px)
-        within = false;
+      const LineSums& b = it->second;
+      if (std::abs(b.m / b.n - (f.gain * b.t / b.n + f.offset_px)) > s.linear_tolerance_px) within = false;
     }
     if (!any) continue;
     if (!within) break;

@@ -11,8 +11,9 @@
 //   response gain and offset: the least-squares line measured = gain x true
 //     + offset over the samples with |true| <= gain_within_px;
 //   linear range: the largest |true| such that every bin of width bin_px
-//     from 0 out to it (both signs) keeps its rms departure from that line
-//     within linear_tolerance_px;
+//     from 0 out to it (both signs) keeps its mean measured slope within
+//     linear_tolerance_px of that line (the mean: noise averages out, a
+//     bend does not; bins of fewer than 10 samples are passed over);
 //   per subaperture, per flux level (bins of a factor 2 in measured flux)
 //     and per bin of true shift (the response curve);
 //   false rejects: usable but not valid; false accepts: not usable (too
@@ -36,7 +37,7 @@ struct ScoringSettings {
   double usable_fraction = 0.5;       // truth: a subaperture this much lit should be valid
   double bin_px = 0.1;                // width of the true-shift bins
   double gain_within_px = 1.0;        // the gain's fit uses |true shift| up to this
-  double linear_tolerance_px = 0.05;  // rms departure from the line that ends the linear range
+  double linear_tolerance_px = 0.05;  // a bin mean's departure from the line that ends the linear range
 };
 
 // One frame's truth; illuminated may be empty (all fully lit).

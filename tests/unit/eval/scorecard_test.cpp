@@ -61,17 +61,18 @@ TEST_CASE("scorecard: bias, rms, gain and offset of a known linear response", "[
   CHECK(r.rms_px == Approx(std::sqrt(0.5 * sum_e2 / count)).margin(1e-9));
   CHECK(r.valid_fraction == 1.0);
   CHECK(r.median_us == Approx(100.0).margin(1e-3));
-  // An exact line is linear over all of its range: 1.5 px rounded up to the bins.
-  CHECK(r.x.linear_range_px == Approx(1.6).margin(1e-9));
+  // An exact line is linear over all of its range: out to the bin [1.4,
+  // 1.5); the last bin, [1.5, 1.6), holds 5 samples and is passed over.
+  CHECK(r.x.linear_range_px == Approx(1.5).margin(1e-9));
 }
 
 TEST_CASE("scorecard: the linear range ends where the response bends", "[eval]") {
   // measured = t for |t| <= 0.5, then flat at +-0.5 (a saturating
-  // response): with 0.1 px bins and a 0.06 px tolerance the range is the
-  // last bin whose rms departure from the fitted line stays within it.
+  // response): with 0.1 px bins and a 0.04 px tolerance the range ends at
+  // the first bin whose mean departs from the fitted line by more.
   eval::ScoringSettings s;
   s.gain_within_px = 0.5;
-  s.linear_tolerance_px = 0.06;
+  s.linear_tolerance_px = 0.04;
   eval::Scorecard card(1, s);
   std::vector<float> dx(1), dy(1);
   for (int k = 0; k <= 300; ++k) {
@@ -85,12 +86,12 @@ TEST_CASE("scorecard: the linear range ends where the response bends", "[eval]")
   }
   const auto r = card.summary();
   CHECK(r.x.gain == Approx(1.0).margin(1e-4));
-  // Derived from the clamp: bin [0.5, 0.6) departs by sqrt(mean (0.01 j)^2,
-  // j = 0..9) = 0.053 px rms (within 0.06), bin [0.6, 0.7) by 0.145: the
-  // range is 0.6 px. The identity response covers every bin out to 1.5 px,
-  // which sits in the bin [1.5, 1.6).
-  CHECK(r.x.linear_range_px == Approx(0.6).margin(1e-9));
-  CHECK(r.y.linear_range_px == Approx(1.6).margin(1e-9));
+  // Derived from the clamp: bin [0.4, 0.5) does not depart, bin [0.5, 0.6)
+  // departs by the mean of 0.01 j, j = 0..9: 0.045 px (beyond 0.04): the
+  // range is 0.5 px. The identity response is linear out to 1.5 px (the
+  // bin [1.5, 1.6) holds one sample, too few to count).
+  CHECK(r.x.linear_range_px == Approx(0.5).margin(1e-9));
+  CHECK(r.y.linear_range_px == Approx(1.5).margin(1e-9));
   // The response curve has one point per bin (-15..15), the measured means clamped.
   REQUIRE(r.response_x.size() == 31);
   CHECK(r.response_x.front().measured_px == Approx(-0.5).margin(1e-6));
