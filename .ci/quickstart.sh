@@ -101,3 +101,9 @@ echo "== the daemon's own view"
 "$bin/client/cli/slopecast" status --config "$config"
 kill -TERM "$daemon_pid"
 wait "$daemon_pid" && echo "== slopecastd stopped cleanly"
+
+if [[ -f "fixtures/$bench/evaluate.sh" ]]; then
+  # The bench's own evaluation (its script says what it scores).
+  # shellcheck source=/dev/null
+  source "fixtures/$bench/evaluate.sh"
+fi

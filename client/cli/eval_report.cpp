@@ -498,7 +498,7 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
       body += "EOD\n";
       if (theory)
         plot_cmd += "$theory using 1:2 with lines dt 2 lw 2 lc rgb '#000000' title 'CoG theory (Rousset 1999)', "
-                    "$theory using 1:3 with lines dt 3 lw 2 lc rgb '#777777' title 'Cramér–Rao bound (Winick 1986)', ";
+                    "$theory using 1:3 with lines dt 3 lw 3 lc rgb '#000000' title 'Cramér–Rao bound (Winick 1986)', ";
       plot_cmd.resize(plot_cmd.size() - 2);
       body += "set logscale xy\nset xlabel 'photo-electrons per subaperture'\nset ylabel " +
               gp_text(truth ? "rms error per axis (px)" : "temporal noise per axis (px)") + "\n";
