@@ -28,14 +28,9 @@ std::variant<std::vector<eval::Candidate>, std::string> parse_eval_plan(const st
                                                                        const std::string& source,
                                                                        const core::CentroiderSettings& base) {
   auto fail = [&](const std::string& why) { return fmt::format("{}: {}", source, why); };
-  if (auto e = io::check_toml_shape(text); !e.empty()) return fail(e);
-  toml::value root;
-  try {
-    std::istringstream in(text);
-    root = toml::parse(in, source);
-  } catch (const std::exception& e) {
-    return std::string(e.what());
-  }
+  auto parsed = io::parse_toml_text(text, source);
+  if (auto* e = std::get_if<std::string>(&parsed)) return *e;
+  const toml::value& root = std::get<toml::value>(parsed);
   for (const auto& [key, value] : root.as_table())
     if (key != "candidate" || !value.is_array())
       return fail(fmt::format("unknown table or key '{}': a plan holds [[candidate]] tables only", key));

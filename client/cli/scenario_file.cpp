@@ -10,14 +10,9 @@ namespace slopecast::cli {
 
 std::variant<ScenarioFile, std::string> parse_scenario(const std::string& text, const std::string& source) {
   auto fail = [&](const std::string& why) { return fmt::format("{}: {}", source, why); };
-  if (auto e = io::check_toml_shape(text); !e.empty()) return fail(e);
-  toml::value root;
-  try {
-    std::istringstream in(text);
-    root = toml::parse(in, source);
-  } catch (const std::exception& e) {
-    return std::string(e.what());
-  }
+  auto parsed = io::parse_toml_text(text, source);
+  if (auto* e = std::get_if<std::string>(&parsed)) return *e;
+  const toml::value& root = std::get<toml::value>(parsed);
   static const std::set<std::string> kTables{"atmosphere", "layer", "pupil", "aberrations", "optics", "light", "detector"};
   for (const auto& [key, value] : root.as_table()) {
     if (!kTables.count(key)) return fail(fmt::format("unknown table or key '{}'", key));

@@ -48,14 +48,9 @@ std::variant<DaemonConfig, ConfigError> parse_daemon_config(const std::string& t
                                                             const std::filesystem::path& base_dir,
                                                             ConfigLoad what) {
   auto fail = [&](const std::string& msg) { return ConfigError{fmt::format("{}: {}", source, msg)}; };
-  toml::value root;
-  if (auto e = check_toml_shape(text); !e.empty()) return fail(e);
-  try {
-    std::istringstream in(text);
-    root = toml::parse(in, source);
-  } catch (const std::exception& e) {
-    return ConfigError{e.what()};
-  }
+  auto parsed = parse_toml_text(text, source);
+  if (auto* e = std::get_if<std::string>(&parsed)) return ConfigError{*e};
+  const toml::value& root = std::get<toml::value>(parsed);
   for (const auto& [key, value] : root.as_table()) {
     if (!kTables.count(key)) return fail(fmt::format("unknown table or key '{}'", key));
     if (!value.is_table()) return fail(fmt::format("'{}' must be a table ([{}])", key, key));

@@ -7,7 +7,9 @@
 #include <cstdint>
 #include <map>
 #include <set>
+#include <sstream>
 #include <string>
+#include <variant>
 
 #include <fmt/format.h>
 #include <toml.hpp>
@@ -88,6 +90,19 @@ inline std::string check_toml_shape(const std::string& text) {
     }
   }
   return {};
+}
+
+// check_toml_shape() then toml11's parser: the document, or a sentence
+// ("<source>: why" for a shape problem, toml11's own message, which names
+// the source and line, for a syntax error).
+inline std::variant<toml::value, std::string> parse_toml_text(const std::string& text, const std::string& source) {
+  if (auto e = check_toml_shape(text); !e.empty()) return fmt::format("{}: {}", source, e);
+  try {
+    std::istringstream in(text);
+    return toml::parse(in, source);
+  } catch (const std::exception& e) {
+    return std::string(e.what());
+  }
 }
 
 // Reads typed values out of one TOML table, remembering which keys were used

@@ -67,17 +67,23 @@ double pixelisation_bias(double x0, double sigma) {
   return e;
 }
 
+// An 8 x 8 sensor of 12 px boxes whose pipeline adds nothing to the
+// centroider: no background estimate, every subaperture kept.
+std::filesystem::path write_bare_bench(const std::filesystem::path& dir, const std::string& pixel_type) {
+  const auto cfg = dir / "bench.toml";
+  std::ofstream(cfg) << "[camera]\nwidth_px = 96\nheight_px = 96\npixel_type = \"" << pixel_type << "\"\n"
+                     << "[lenslet_grid]\nsubapertures_x = 8\nsubapertures_y = 8\npitch_px = 12\n"
+                        "[calibration]\nbackground = \"none\"\nmin_snr = 0\nedge_margin_px = 0\n";
+  return cfg;
+}
+
 }  // namespace
 
 TEST_CASE("eval on a noiseless sweep: CoG gain 1 within 1e-3 and the error is the derived pixelisation bias",
           "[integration][eval]") {
   testing::TempDir dir;
-  const auto cfg = dir.path() / "bench.toml";
-  // f32 pixels (no rounding), no background estimate, every subaperture
-  // kept: the CoG of the pixel-integrated spot and nothing else.
-  std::ofstream(cfg) << "[camera]\nwidth_px = 96\nheight_px = 96\npixel_type = \"f32\"\n"
-                        "[lenslet_grid]\nsubapertures_x = 8\nsubapertures_y = 8\npitch_px = 12\n"
-                        "[calibration]\nbackground = \"none\"\nmin_snr = 0\nedge_margin_px = 0\n";
+  // f32 pixels (no rounding): the CoG of the pixel-integrated spot and nothing else.
+  const auto cfg = write_bare_bench(dir.path(), "f32");
   const double sigma = 0.5;
   REQUIRE(run_eval({"--config", cfg.string(), "--response-px", "2", "--frames", "81", "--noiseless", "--bias-adu", "0",
                     "--spot-sigma-px", "0.5", "--photons", "10000", "--bin-px", "0.01", "--gain-within-px", "2",
@@ -114,10 +120,7 @@ TEST_CASE("eval's photon and read-noise sweeps follow Rousset's CoG formula, app
           "rank weighted CoG above CoG when read noise dominates",
           "[integration][eval]") {
   testing::TempDir dir;
-  const auto cfg = dir.path() / "bench.toml";
-  std::ofstream(cfg) << "[camera]\nwidth_px = 96\nheight_px = 96\npixel_type = \"u16\"\n"
-                        "[lenslet_grid]\nsubapertures_x = 8\nsubapertures_y = 8\npitch_px = 12\n"
-                        "[calibration]\nbackground = \"none\"\nmin_snr = 0\nedge_margin_px = 0\n";
+  const auto cfg = write_bare_bench(dir.path(), "u16");
   REQUIRE(run_eval({"--config", cfg.string(), "--spots", "--frames", "200", "--spot-sigma-px", "1", "--max-offset-px",
                     "0.5", "--photons", "300,1000,10000", "--read-noise-e", "0,3", "--candidate",
                     "cog", "--candidate", "wcog weight_sigma_px=1.5 spot_sigma_px=1", "--candidate",
