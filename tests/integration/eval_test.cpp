@@ -308,6 +308,21 @@ TEST_CASE("eval reports, bit for bit, what the running daemon publishes for the 
   // The truth CSV holds 6 decimals: the rms agrees to that.
   CHECK(result(read_json(out2 / "report.json"), 0, "cog (as configured)")["rms_px"].get<double>() ==
         Approx(r["rms_px"].get<double>()).margin(2e-6));
+
+  // Without truth: ranked by noise, each candidate's temporal noise and its
+  // agreement with the first; no error figures.
+  const auto out3 = h.dir / "eval-plain";
+  REQUIRE(run_eval({"--config", (h.dir / "slopecastd.toml").string(), "--cube", (h.dir / "cube.fits").string(),
+                    "--candidate", "cog", "--candidate", "wcog weight_sigma_px=2", "--out", out3.string(), "--no-html"},
+                   h.dir / "eval-plain.log") == 0);
+  const json plain = read_json(out3 / "report.json");
+  CHECK(plain["rank_by"] == "noise");
+  const json& second = result(plain, 0, "wcog weight_sigma_px=2");
+  CHECK(second["rms_px"].is_null());
+  CHECK(second["median_noise_px"].get<double>() > 0);
+  CHECK(second["agreement_rms_px"].get<double>() > 0);
+  CHECK(result(plain, 0, "cog")["agreement_rms_px"].is_null());
+  CHECK(second["valid_fraction"].get<double>() > 0.5);
 }
 
 TEST_CASE("eval's CSV, JSON and HTML agree, and the HTML page needs no network", "[integration][eval]") {
