@@ -322,8 +322,6 @@ void run_eval(EvalOptions o) {
       return fail(kCmd, fmt::format("candidate \"{}\": {}", c.label, e));
   }
   run.candidates = candidates;
-  const bool truth_expected = simulated || !o.truth_csv.empty();
-  run.rank_by = o.rank_by.empty() ? (truth_expected ? "rms" : "noise") : o.rank_by;
 
   // Simulated inputs: the scene, and the dark the pipeline needs for it.
   std::optional<ScenarioFile> scenario;
@@ -388,6 +386,9 @@ void run_eval(EvalOptions o) {
     }
   }
   if (!o.cube.empty()) run.inputs.emplace_back("cube " + o.cube, sha256_of_file(o.cube));
+  // Truth from the simulator, a truth file, or the recording's own truth records.
+  const bool truth_expected = simulated || !truth_rows.empty();
+  run.rank_by = o.rank_by.empty() ? (truth_expected ? "rms" : "noise") : o.rank_by;
 
   // The settings behind every figure.
   {

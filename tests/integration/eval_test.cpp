@@ -283,6 +283,7 @@ TEST_CASE("eval reports, bit for bit, what the running daemon publishes for the 
   // The report's rms is the rms of those slopes against the recording's truth.
   const json report = read_json(out / "report.json");
   const json& r = result(report, 0, "cog (as configured)");
+  CHECK(report["rank_by"] == "rms");  // the recording carries the simulator's truth
   REQUIRE(scored > 0);
   CHECK(r["rms_px"].get<double>() == Approx(std::sqrt(sum2 / scored)).epsilon(1e-6));
   CHECK(r["frames"] == frames);
