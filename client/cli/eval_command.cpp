@@ -257,6 +257,8 @@ void run_eval(EvalOptions o) {
   const bool simulated = o.spots || o.response_px > 0 || !o.scenario.empty();
   if (!simulated && (o.photons_given || o.read_noise_given))
     return fail(kCmd, "--photons and --read-noise-e sweep the simulator: they go with --spots, --response-px or --scenario");
+  if (simulated && (o.first || o.count))
+    return fail(kCmd, "--first and --count pick recorded frames; a simulation makes --frames frames per point");
   if (!o.truth_csv.empty() && o.cube.empty()) return fail(kCmd, "--truth goes with --cube (a recording carries its own truth)");
   if (!simulated && o.config.empty())
     return fail(kCmd, "a recording or a cube is measured with a slopecastd config's geometry and calibration: give --config");

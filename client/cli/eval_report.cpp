@@ -597,7 +597,8 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
        "<style>\nbody{font-family:sans-serif;margin:2em;max-width:70em;color:#222}\n"
        "table{border-collapse:collapse;margin:1em 0}td,th{border:1px solid #ccc;padding:.25em .6em;text-align:right}\n"
        "th{background:#eef3f8}td.l,th.l{text-align:left}\n.partial{background:#fde2e2;padding:.6em;border:1px solid #d1495b}\n"
-       "figure{margin:1.5em 0}figcaption{font-size:90%;color:#555;max-width:60em}\ncode{font-size:90%}\n</style>\n"
+       "figure{margin:1.5em 0}figcaption{font-size:90%;color:#555;max-width:60em}\ncode{font-size:90%}\n"
+       ".wide{overflow-x:auto}\n</style>\n"
        "</head>\n<body>\n";
   h << "<h1>slopecast eval report</h1>\n";
   if (run.partial)
@@ -617,7 +618,8 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
     if (std::isfinite(p.cog_theory_px))
       h << "<p>Theory at this point: CoG " << shown(p.cog_theory_px) << " px rms per axis (Rousset 1999, pixel term "
         << "included); Cramér–Rao bound " << shown(p.cramer_rao_px) << " px (Winick 1986).</p>\n";
-    h << "<table class=\"results\" data-point=\"" << html_escape(p.label) << "\">\n<tr><th class=\"l\">candidate</th>";
+    h << "<div class=\"wide\"><table class=\"results\" data-point=\"" << html_escape(p.label)
+      << "\">\n<tr><th class=\"l\">candidate</th>";
     for (const auto& [name, v] : figures(eval::Summary{})) h << "<th>" << name << "</th>";
     h << "</tr>\n";
     for (std::size_t r = 0; r < order.size(); ++r) {
@@ -627,7 +629,7 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
       for (const auto& [name, v] : figures(p.results[c])) h << "<td>" << shown(v) << "</td>";
       h << "</tr>\n";
     }
-    h << "</table>\n";
+    h << "</table></div>\n";
   }
   h << "<h2>Plots</h2>\n";
   for (const auto& pl : plots) {
