@@ -192,7 +192,8 @@ std::variant<std::unique_ptr<RecordingReader>, std::string> RecordingReader::ope
     bool torn = false;
     if (index_at >= saved && index_at < r->size_ &&
         r->parse_record(m, next, why, torn) == ReadOutcome::kRecord && m.kind == RecordKind::kIndex &&
-        m.parts.size() == 1 && m.parts[0].size() == count * 8 && next + kFooterSize == r->size_) {
+        m.parts.size() == 1 && m.parts[0].size() % 8 == 0 && m.parts[0].size() / 8 == count &&
+        next + kFooterSize == r->size_) {  // (count * 8 could wrap: compare by division)
       r->index_.resize(count);
       if (count) std::memcpy(r->index_.data(), m.parts[0].data(), count * 8);
       r->indexed_ = true;
