@@ -21,8 +21,8 @@ bool endpoint_ok(const char* command, const char* option, const std::string& end
   return true;
 }
 
-std::optional<io::DaemonConfig> read_daemon_config(const char* command, const std::string& path) {
-  auto r = io::load_daemon_config(path, io::ConfigLoad{.load_images = false});
+std::optional<io::DaemonConfig> read_daemon_config(const char* command, const std::string& path, io::ConfigLoad what) {
+  auto r = io::load_daemon_config(path, what);
   if (auto* e = std::get_if<io::ConfigError>(&r)) {
     fail(command, "--config: " + e->message);
     return std::nullopt;

@@ -82,8 +82,10 @@ std::optional<v1::ControlReply> call_daemon(const char* command, client::Control
                                             const v1::ControlRequest& request, double timeout_s,
                                             const char* refused_suffix = "");
 
-// A slopecastd config read for its camera, grid and endpoints (its dark is
-// not loaded: it may not exist yet). On error fails the command.
-std::optional<io::DaemonConfig> read_daemon_config(const char* command, const std::string& path);
+// A slopecastd config read for its camera, grid and endpoints (by default
+// its dark and other images are not loaded: they may not exist yet; eval
+// asks for everything the daemon loads). On error fails the command.
+std::optional<io::DaemonConfig> read_daemon_config(const char* command, const std::string& path,
+                                                  io::ConfigLoad what = {.load_images = false});
 
 }  // namespace slopecast::cli

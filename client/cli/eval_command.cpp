@@ -278,7 +278,9 @@ void run_eval(EvalOptions o) {
   std::filesystem::path base_dir = ".";
   std::optional<io::DaemonConfig> config;
   if (!o.config.empty()) {
-    config = read_daemon_config(kCmd, o.config);
+    // Everything the daemon loads (dark, sky, flat, calibration set,
+    // reference image): the pipeline must be the daemon's.
+    config = read_daemon_config(kCmd, o.config, io::ConfigLoad{.load_images = true});
     if (!config) return;
     base = config->pipeline;
     base_dir = config->base_dir;

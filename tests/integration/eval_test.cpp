@@ -217,7 +217,15 @@ TEST_CASE("eval reports, bit for bit, what the running daemon publishes for the 
           "with a truth CSV scores the same",
           "[integration][eval]") {
   testing::DaemonHarness h;
-  REQUIRE(h.start(kDaemonConfig));
+  // With a dark frame, as a bench runs: eval must load it as the daemon does.
+  {
+    testing::ChildProcess dark(SLOPECAST_PATH,
+                               {"sim", "--write-dark", (h.dir / "dark.fits").string(), "--dark-frames", "20",
+                                "--subapertures-x", "8", "--subapertures-y", "8", "--pitch-px", "12"},
+                               h.dir / "dark.log");
+    REQUIRE(dark.wait(60s) == 0);
+  }
+  REQUIRE(h.start(kDaemonConfig + "[calibration]\ndark_frame = \"dark.fits\"\n"));
   std::ofstream(h.dir / "scenario.toml") << kScenario;
   const auto rec = h.dir / "run.screc";
   const int frames = 30;
