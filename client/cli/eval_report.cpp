@@ -453,7 +453,7 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
   std::vector<Plot> plots;
   const std::string head =
       "set terminal svg size 760,500 dynamic noenhanced font 'sans,11' background '#ffffff'\n"
-      "set border lw 1 lc rgb '#444444'\nset grid lc rgb '#dddddd'\nset key below Left reverse box lc rgb '#bbbbbb'\n";
+      "set border lw 1 lc rgb '#444444'\nset grid lc rgb '#dddddd'\nset key below Left reverse box lc rgb '#bbbbbb' height 1.5\n";
   auto draw = [&](const std::string& name, const std::string& body) -> std::string {
     const auto script = plot_dir / (name + ".gp");
     std::ofstream gp(script);
@@ -598,7 +598,7 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
        "table{border-collapse:collapse;margin:1em 0}td,th{border:1px solid #ccc;padding:.25em .6em;text-align:right}\n"
        "th{background:#eef3f8}td.l,th.l{text-align:left}\n.partial{background:#fde2e2;padding:.6em;border:1px solid #d1495b}\n"
        "figure{margin:1.5em 0}figcaption{font-size:90%;color:#555;max-width:60em}\ncode{font-size:90%}\n"
-       ".wide{overflow-x:auto}\n</style>\n"
+       ".wide{overflow-x:auto}\nimg{max-width:100%;height:auto}\n</style>\n"
        "</head>\n<body>\n";
   h << "<h1>slopecast eval report</h1>\n";
   if (run.partial)
