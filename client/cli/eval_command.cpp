@@ -341,6 +341,9 @@ void run_eval(EvalOptions o) {
     o.bias_adu = scenario->detector.bias_adu;
   }
   if (o.noiseless) o.read_noise_e = {0.0};
+  if (simulated && (!base.layout.empty() || !base.reference_slope_x_px.empty()))
+    run.notes.push_back("the simulator draws spots on the config's regular grid, but this config's pipeline places "
+                        "zero points from a layout or subtracts reference slopes: the errors include that difference");
   if (simulated && base.dark_adu.empty() && o.bias_adu > 0) {
     base.dark_adu.assign(static_cast<std::size_t>(camera.width_px) * camera.height_px, static_cast<float>(o.bias_adu));
     run.notes.push_back(fmt::format("dark: the simulator's bias, {} ADU on every pixel, known exactly", o.bias_adu));
