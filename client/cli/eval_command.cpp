@@ -473,6 +473,7 @@ void run_eval(EvalOptions o) {
   using clock = std::chrono::steady_clock;
   auto last_progress = clock::now();
   std::uint64_t refused = 0, without_truth = 0;
+  std::string last_refusal;
   v1::FrameHeader header_scratch;
   for (std::size_t pi = 0; pi < specs.size() && !run.partial; ++pi) {
     const PointSpec& spec = specs[pi];
@@ -580,9 +581,18 @@ void run_eval(EvalOptions o) {
       core::FrameCheckResult checked;
       if (facts) checked = core::check_frame(*facts, payload, camera);
       if (!facts || !checked.image) {
-        if (++refused <= 3)
-          std::cerr << fmt::format("slopecast eval: frame seq {} refused: {}\n", f.seq,
-                                   facts ? std::string(core::frame_reject_name(checked.reject)) : "bad header");
+        std::string why = "its header does not parse";
+        if (facts) {
+          core::RejectedFrame seen;
+          seen.facts = *facts;
+          seen.parts = 2;
+          seen.header_bytes = f.header.size();
+          seen.payload_bytes = f.pixels.size();
+          why = fmt::format("{} ({})", core::frame_reject_name(checked.reject),
+                            core::describe_reject(checked.reject, seen, camera));
+        }
+        if (++refused <= 3) std::cerr << fmt::format("slopecast eval: frame seq {} refused: {}\n", f.seq, why);
+        last_refusal = why;
         continue;
       }
       eval::TruthView truth;
@@ -626,7 +636,10 @@ void run_eval(EvalOptions o) {
     run.notes.push_back(fmt::format("{} frame(s) had no truth and were scored for noise only", without_truth));
   if (run.points.empty() || run.points[0].results.empty() || run.points[0].results[0].frames == 0) {
     if (run.partial) return void(exit_code() = stopped_exit_code());
-    return fail(kCmd, "no frame was measured (empty input, or every frame refused)");
+    return fail(kCmd, refused ? fmt::format("every frame was refused ({} of them), the last: {}; is --config this "
+                                            "camera's config?",
+                                            refused, last_refusal)
+                              : std::string("no frame was measured: the input holds no frames"));
   }
 
   print_table(std::cout, run);

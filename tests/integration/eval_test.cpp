@@ -378,6 +378,10 @@ TEST_CASE("eval refuses bad input with a sentence, never overwrites a report, an
            (dir.path() / "truth.csv").string()},
           "line 3: 'abc' is not a number");
 
+  // Frames of another camera: every one refused, and the sentence says how they differ.
+  refused({"--config", cfg.string(), "--cube", std::string(SLOPECAST_SOURCE_DIR) + "/fixtures/skelda_moss/frames.fits"},
+          "80 x 80 u16, expected 96 x 96 u16");
+
   // A report is never replaced.
   const auto out = dir.path() / "out";
   REQUIRE(run_eval({"--spots", "--subapertures", "4", "--frames", "5", "--out", out.string(), "--no-html"},
