@@ -1,5 +1,6 @@
 #include "client/cli/frame_source.h"
 
+#include <cmath>
 #include <fstream>
 #include <iostream>
 
@@ -72,11 +73,12 @@ bool CubeSource::use_frame_table() {
   if (!t) return false;
   const io::FitsColumn* seq = t->find("FRAME_SEQ");
   if (!seq || static_cast<long>(seq->values.size()) != cube_->planes()) return false;
-  seqs_.clear();
+  std::vector<std::uint64_t> seqs;  // kept only when every value is a seq
   for (double v : seq->values) {
-    if (!(v >= 0)) return false;
-    seqs_.push_back(static_cast<std::uint64_t>(v));
+    if (!(v >= 0 && v < 1.8e19 && v == std::floor(v))) return false;
+    seqs.push_back(static_cast<std::uint64_t>(v));
   }
+  seqs_ = std::move(seqs);
   return true;
 }
 
