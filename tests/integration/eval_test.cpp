@@ -17,6 +17,7 @@
 
 #include <nlohmann/json.hpp>
 
+#include "daemon/io/fits_image.h"
 #include "daemon/io/recording.h"
 #include "slopecast/v1/measurement.pb.h"
 #include "tests/integration/daemon_harness.h"
@@ -381,6 +382,22 @@ TEST_CASE("eval refuses bad input with a sentence, never overwrites a report, an
   // Frames of another camera: every one refused, and the sentence says how they differ.
   refused({"--config", cfg.string(), "--cube", std::string(SLOPECAST_SOURCE_DIR) + "/fixtures/skelda_moss/frames.fits"},
           "80 x 80 u16, expected 96 x 96 u16");
+
+  // A cube whose FRAMES table holds a value that is no seq: planes are numbered from 0 instead.
+  {
+    const std::vector<std::uint16_t> pixels(96 * 96 * 3, 100);
+    const std::vector<io::FitsColumn> table{{"FRAME_SEQ", true, "", {5, -1, 7}}};
+    REQUIRE(io::write_fits_frames(dir.path() / "odd.fits", 96, 96, 3, core::PixelFormat::kU16,
+                                  std::as_bytes(std::span(pixels)), {}, "FRAMES", table)
+                .empty());
+    const auto odd = dir.path() / "odd";
+    REQUIRE(run_eval({"--config", cfg.string(), "--cube", (dir.path() / "odd.fits").string(), "--out", odd.string(),
+                      "--no-html"},
+                     dir.path() / "odd.log") == 0);
+    const json r = read_json(odd / "report.json");
+    CHECK(r["points"][0]["results"][0]["frames"] == 3);
+    CHECK(r["notes"].dump().find("plane numbers") != std::string::npos);
+  }
 
   // A report is never replaced.
   const auto out = dir.path() / "out";
