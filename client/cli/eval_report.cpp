@@ -1,5 +1,7 @@
 #include "client/cli/eval_report.h"
 
+#include "client/lib/flag_letters.h"
+
 #include <fcntl.h>
 #include <spawn.h>
 #include <sys/wait.h>
@@ -509,7 +511,8 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
       if (auto e = draw(name, body); !e.empty()) return e;
       plots.push_back({name, std::isnan(noise_levels[g]) ? "Error against signal"
                                                            : fmt::format("Error against signal, read noise {} e⁻", noise_levels[g]),
-                       "Each candidate's rms error per axis (all valid, usable subapertures), the CoG's published "
+                       "Each candidate's rms error per axis (all valid, usable subapertures; the best 8 when there "
+                       "are more), the CoG's published "
                        "noise (Rousset 1999, the pixel's 1/12 px² included) and the Cramér–Rao bound for a "
                        "pixel-integrated Gaussian with read noise (Winick 1986). Input: " + input_line});
     }
@@ -533,7 +536,8 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
             gp_text("response, " + p.label) + "\n" + plot_cmd + "\n";
     if (auto e = draw("response", body); !e.empty()) return e;
     plots.push_back({"response", "Response (x)",
-                     fmt::format("Mean measured minus true slope in bins of true shift (bins of at least 10 samples), {}. Input: {}",
+                     fmt::format("Mean measured minus true slope in bins of true shift (bins of at least 10 samples; the best 8 "
+                                 "candidates), {}. Input: {}",
                                  p.label, input_line)});
     break;
   }
@@ -556,7 +560,8 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
             "set title " + gp_text("error by flux, " + p.label) + "\n" + plot_cmd + "\n";
     if (auto e = draw("flux", body); !e.empty()) return e;
     plots.push_back({"flux", "Error by flux level",
-                     fmt::format("rms error per axis in bins of measured flux, {}. Input: {}", p.label, input_line)});
+                     fmt::format("rms error per axis in bins of measured flux (the best 8 candidates), {}. Input: {}", p.label,
+                                 input_line)});
     break;
   }
   // 4. Maps over the pupil, best candidates first (the last point: the most light in a sweep).
@@ -630,6 +635,37 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
       h << "</tr>\n";
     }
     h << "</table></div>\n";
+    // Why subapertures were not valid: each reason's share of all
+    // subaperture-frames (one subaperture may carry several).
+    std::vector<std::uint32_t> bits;
+    for (const auto& f : client::kFlagLetters)
+      for (const auto& r : p.results)
+        if (r.invalid_reasons.count(f.bit)) {
+          bits.push_back(f.bit);
+          break;
+        }
+    if (!bits.empty()) {
+      h << "<p>Why subapertures were flagged (% of all subaperture-frames):</p>\n<div class=\"wide\"><table "
+           "class=\"reasons\">\n<tr><th class=\"l\">candidate</th>";
+      for (auto bit : bits)
+        for (const auto& f : client::kFlagLetters)
+          if (f.bit == bit) h << "<th>" << html_escape(f.meaning) << "</th>";
+      h << "</tr>\n";
+      const double all = static_cast<double>(run.n_subap_x) * run.n_subap_y;
+      for (std::size_t r = 0; r < order.size(); ++r) {
+        const std::size_t c = order[r];
+        if (c >= p.results.size()) continue;
+        const auto& res = p.results[c];
+        h << "<tr><td class=\"l\">" << html_escape(run.candidates[c].label) << "</td>";
+        for (auto bit : bits) {
+          const auto it = res.invalid_reasons.find(bit);
+          const double n = it == res.invalid_reasons.end() ? 0.0 : static_cast<double>(it->second);
+          h << "<td>" << (res.frames ? percent(n / (all * static_cast<double>(res.frames))) : std::string("–")) << "</td>";
+        }
+        h << "</tr>\n";
+      }
+      h << "</table></div>\n";
+    }
   }
   h << "<h2>Plots</h2>\n";
   for (const auto& pl : plots) {
