@@ -8,7 +8,6 @@
 // the Cramér–Rao bound. Writes a ranked table, CSV, JSON and an HTML report.
 #include <chrono>
 #include <cmath>
-#include <ctime>
 #include <fstream>
 #include <iostream>
 #include <map>
@@ -28,6 +27,7 @@
 #include "daemon/core/centroid/centroid_noise.h"
 #include "daemon/core/frame/frame_check.h"
 #include "daemon/core/pipeline/pipeline.h"
+#include "daemon/io/calibration_set.h"
 #include "daemon/io/wire_codec.h"
 
 namespace slopecast::cli {
@@ -71,15 +71,6 @@ struct EvalOptions {
   // Whether the sweep options were given (they belong to simulated inputs).
   bool photons_given = false, read_noise_given = false;
 };
-
-std::string utc_now() {
-  const std::time_t t = std::time(nullptr);
-  std::tm tm{};
-  gmtime_r(&t, &tm);
-  char buf[32];
-  std::strftime(buf, sizeof buf, "%Y-%m-%dT%H:%M:%SZ", &tm);
-  return buf;
-}
 
 // One frame to measure and what is known about it.
 struct EvalFrame {
@@ -234,14 +225,6 @@ std::variant<std::map<std::uint64_t, TruthRow>, std::string> read_truth_csv(cons
   return out;
 }
 
-// A CSV cell: quoted when it holds a comma or a quote.
-std::string csv_label(const std::string& s) {
-  if (s.find_first_of(",\"") == std::string::npos) return s;
-  std::string q = "\"";
-  for (char c : s) q += c == '"' ? std::string("\"\"") : std::string(1, c);
-  return q + "\"";
-}
-
 std::string join_values(const std::vector<double>& v) {
   std::string s;
   for (double x : v) s += fmt::format("{}{}", s.empty() ? "" : ",", x);
@@ -271,7 +254,7 @@ void run_eval(EvalOptions o) {
 
   EvalRun run;
   run.command = invocation();
-  run.started_utc = utc_now();
+  run.started_utc = io::utc_now_iso();
 
   // The pipeline every candidate shares: the daemon's, from its config.
   core::PipelineSettings base;
@@ -611,7 +594,7 @@ void run_eval(EvalOptions o) {
         if (per_frame.is_open()) {
           const auto& m = measured[c];
           for (int i = 0; i < n_subap; ++i) {
-            per_frame << fmt::format("{},{},{},{},{},{},{},{},{},{}", csv_label(point.label), csv_label(candidates[c].label),
+            per_frame << fmt::format("{},{},{},{},{},{},{},{},{},{}", csv_field(point.label), csv_field(candidates[c].label),
                                      f.seq, i, m.slope_x_px[i], m.slope_y_px[i], m.flux_adu[i], m.peak_adu[i],
                                      m.flags[i] == core::kFlagNone ? 1 : 0, m.flags[i]);
             if (f.has_truth)

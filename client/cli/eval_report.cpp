@@ -37,12 +37,6 @@ std::string csv_number(double v) { return std::isfinite(v) ? fmt::format("{}", v
 std::string shown(double v) { return std::isfinite(v) ? fmt::format("{:.4g}", v) : std::string("–"); }
 std::string percent(double v) { return std::isfinite(v) ? fmt::format("{:.1f}", 100 * v) : std::string("–"); }
 
-std::string csv_field(const std::string& s) {
-  if (s.find_first_of(",\"\n") == std::string::npos) return s;
-  std::string q = "\"";
-  for (char c : s) q += c == '"' ? std::string("\"\"") : std::string(1, c);
-  return q + "\"";
-}
 
 std::string html_escape(const std::string& s) {
   std::string out;
@@ -175,6 +169,13 @@ struct Plot {
 };
 
 }  // namespace
+
+std::string csv_field(const std::string& s) {
+  if (s.find_first_of(",\"\n") == std::string::npos) return s;
+  std::string q = "\"";
+  for (char c : s) q += c == '"' ? std::string("\"\"") : std::string(1, c);
+  return q + "\"";
+}
 
 bool known_figure(const std::string& name) {
   static const std::set<std::string> k{"rms", "bias", "noise", "valid", "time", "agreement"};

@@ -46,6 +46,10 @@ struct EvalRun {
   std::vector<std::string> notes;  // remarks for the reader (dark from the bias, frames refused ...)
 };
 
+// A CSV cell: quoted (quotes doubled) when it holds a comma, a quote or a
+// line end.
+std::string csv_field(const std::string& s);
+
 // The figures a ranking can use.
 bool known_figure(const std::string& name);
 // A candidate's figure at one point (NaN when it has none).
