@@ -44,6 +44,10 @@ enum class SimdLevel { kBaseline, kAvx2 };
 SimdLevel best_simd_level();
 const char* simd_level_name(SimdLevel level);
 
+// Entries past a strip's last column that RawColumns arrays keep readable
+// (folded_moments reads columns four at a time and masks these out).
+inline constexpr int kRawColumnSlack = 3;
+
 struct RawColumns {
   std::uint32_t* s;    // sum v
   std::uint32_t* sy;   // sum y v

@@ -6,6 +6,11 @@
 #include <cassert>
 #include <cmath>
 #include <cstring>
+#include <limits>
+#include <memory>
+#include <type_traits>
+
+#include <immintrin.h>
 
 namespace slopecast::core {
 
@@ -66,10 +71,12 @@ namespace {
 
 // 4 float lanes, one SSE register on the x86-64-v2 baseline: the ring's
 // loops are reductions, which the compiler may not reorder on its own, so
-// the lanes are written out, with selects as bit masks; the lane sums are
-// added in double at the end. The ring is padded to a multiple of 4 with
-// copies of its first value for the sums that must not see the padding
-// masked out below.
+// the lanes are written out (value k in lane k % 4), with selects as bit
+// masks; the lane sums are added in double at the end. The ring is padded
+// in place to a multiple of 4, each pass with a value that leaves its
+// result unchanged: 0 for the sums, the mean for the squares (whose
+// deviation is then 0) and the extremes (the mean lies between them), NaN
+// for the counts (a NaN compares false). No lane masks, no copy.
 typedef float F4 __attribute__((vector_size(16)));
 typedef int I4 __attribute__((vector_size(16)));
 
@@ -81,22 +88,26 @@ F4 load4(const float* p) {
 }
 F4 select(I4 mask, F4 v) { return reinterpret_cast<F4>(mask & reinterpret_cast<I4>(v)); }
 F4 absolute(F4 v) { return reinterpret_cast<F4>(reinterpret_cast<I4>(v) & 0x7fffffff); }
+int lane_total(I4 v) { return v[0] + v[1] + v[2] + v[3]; }
 
-// Level and noise of n ring values (ring order), as in the header. work
-// holds n + 8 floats and is overwritten.
-BorderStats ring_stats(const float* ring, int n, float* work) {
+void pad(float* ring, int n, int padded, float value) {
+  for (int k = n; k < padded; ++k) ring[k] = value;
+}
+
+// Level and noise of n ring values (ring order), as in the header. ring
+// holds n values and room for padded_size(n); it and work (n + 4 floats)
+// are overwritten.
+int padded_size(int n) { return (n + 3) / 4 * 4; }
+
+BorderStats ring_stats(float* ring, int n, float* work) {
   BorderStats b;
   b.n_border = n;
-  const int padded = (n + 3) / 4 * 4;
-  // Lanes past n are masked out of every sum.
-  I4 lane = {0, 1, 2, 3};
-  const I4 four = {4, 4, 4, 4};
-  std::copy(ring, ring + n, work);
-  for (int k = n; k < padded; ++k) work[k] = 0.0f;
+  const int padded = padded_size(n);
+  pad(ring, n, padded, 0.0f);
   // One pass: v * 0 is 0 for a finite v and NaN for a NaN or infinity.
   F4 zero = {}, sum = {};
   for (int k = 0; k < padded; k += 4) {
-    const F4 v = load4(work + k);
+    const F4 v = load4(ring + k);
     zero += v * 0.0f;
     sum += v;
   }
@@ -117,39 +128,35 @@ BorderStats ring_stats(const float* ring, int n, float* work) {
   // or a spot tail fail the test and take the full procedure.
   const double mean = lane_sum(sum) / n;
   const float mf = static_cast<float>(mean);
-  F4 ss = {}, lo = work[0] + F4{}, hi = work[0] + F4{};
-  lane = I4{0, 1, 2, 3};
-  for (int k = 0; k < padded; k += 4, lane += four) {
-    const F4 v = load4(work + k);
-    const I4 real = lane < n;
-    const F4 d = select(real, v - mf);
+  pad(ring, n, padded, mf);
+  F4 ss = {}, lo = ring[0] + F4{}, hi = ring[0] + F4{};
+  for (int k = 0; k < padded; k += 4) {
+    const F4 v = load4(ring + k);
+    const F4 d = v - mf;
     ss += d * d;
-    const F4 vr = real ? v : work[0] + F4{};
-    lo = vr < lo ? vr : lo;
-    hi = vr > hi ? vr : hi;
+    lo = v < lo ? v : lo;
+    hi = v > hi ? v : hi;
   }
   const double sum_sq = lane_sum(ss);
   const float vmin = std::min(std::min(lo[0], lo[1]), std::min(lo[2], lo[3]));
   const float vmax = std::max(std::max(hi[0], hi[1]), std::max(hi[2], hi[3]));
   const double c = 3.5 * std::max(std::sqrt(sum_sq / n), static_cast<double>(kRoundingSigma));
   const float low_bound = static_cast<float>(vmax - c), high_bound = static_cast<float>(vmin + c);
+  pad(ring, n, padded, std::numeric_limits<float>::quiet_NaN());
   I4 below = {}, above = {};
-  lane = I4{0, 1, 2, 3};
-  for (int k = 0; k < padded; k += 4, lane += four) {
-    const F4 v = load4(work + k);
-    const I4 real = lane < n;
-    below -= real & (v < low_bound);
-    above -= real & (v > high_bound);
+  for (int k = 0; k < padded; k += 4) {
+    const F4 v = load4(ring + k);
+    below -= v < low_bound;
+    above -= v > high_bound;
   }
-  const int n_below = below[0] + below[1] + below[2] + below[3];
-  const int n_above = above[0] + above[1] + above[2] + above[3];
   const int mid = n / 2;
-  if (n_below <= mid - 1 && n_above <= n - mid - 1) {
+  if (lane_total(below) <= mid - 1 && lane_total(above) <= n - mid - 1) {
     b.level_adu = mf;
     b.n_kept = n;
     b.sigma_adu = std::max(static_cast<float>(n > 1 ? std::sqrt(sum_sq / (n - 1)) : 0.0), kRoundingSigma);
     return b;
   }
+  std::copy(ring, ring + n, work);
   const float median = median_of(work, n);
   // The median anchors the ring; rounds of 3.5-sigma clipping about it (until
   // no pixel changes side) remove outliers (hot pixels, a spot tail), the
@@ -160,7 +167,7 @@ BorderStats ring_stats(const float* ring, int n, float* work) {
   // boxes a lumpy, long-tailed flux (measured: a significance of 6.3 among
   // 51 200 empty boxes). A second selection for the MAD cost 0.6 us per box.
   for (int k = 0; k < n; ++k) work[k] = ring[k] - median;
-  for (int k = n; k < padded; ++k) work[k] = HUGE_VALF;  // never kept
+  pad(work, n, padded, HUGE_VALF);  // never kept
   double clip = HUGE_VAL, mean_d = 0.0, var = 0.0;
   int kept = 0;
   for (int round = 0; round < 8; ++round) {  // until no pixel changes side; 8 at most
@@ -175,7 +182,7 @@ BorderStats ring_stats(const float* ring, int n, float* work) {
       s2 += kept_d * kept_d;
       count -= in;
     }
-    const int k_round = count[0] + count[1] + count[2] + count[3];
+    const int k_round = lane_total(count);
     const double t1 = lane_sum(s1), t2 = lane_sum(s2);
     // The median lies within any clip of at least half the ring, so k_round > 0.
     const bool stable = k_round == kept;
@@ -212,29 +219,97 @@ BorderStats ring_median_stats(const float* ring, int n, float* work) {
   return b;
 }
 
-BorderStats stats_for(BackgroundMode mode, const float* ring, int n, float* work) {
+// ring: n values with room for padded_size(n); the work area follows it.
+BorderStats stats_for(BackgroundMode mode, float* ring, int n) {
+  float* work = ring + n + 4;
   return mode == BackgroundMode::kBorderMedian ? ring_median_stats(ring, n, work) : ring_stats(ring, n, work);
 }
 
 }  // namespace
 
+void gather_border(const WindowView& w, float* ring) {
+  int k = 0;
+  for_ring(w.width, w.height, [&](int x, int y) { ring[k++] = w.data[static_cast<std::size_t>(y) * w.stride + x]; });
+}
+
 BorderStats border_stats(const WindowView& w, std::span<float> scratch, BackgroundMode mode) {
   const int n = border_pixel_count(w.width, w.height);
   assert(scratch.size() >= 2 * static_cast<std::size_t>(n) + 8);
-  float* ring = scratch.data();  // the ring's values, in ring order
-  int k = 0;
-  for_ring(w.width, w.height, [&](int x, int y) { ring[k++] = w.data[static_cast<std::size_t>(y) * w.stride + x]; });
-  return stats_for(mode, ring, n, ring + n);
+  gather_border(w, scratch.data());
+  return stats_for(mode, scratch.data(), n);
 }
 
 namespace {
+// Four pixels of type T as floats (the conversion is the scalar one, lane
+// by lane): SSE4.1 widening for u8 and u16, element by element otherwise.
+template <typename T>
+F4 load4_as_float(const std::byte* src) {
+  if constexpr (std::is_same_v<T, std::uint16_t>) {
+    return reinterpret_cast<F4>(
+        _mm_cvtepi32_ps(_mm_cvtepu16_epi32(_mm_loadl_epi64(reinterpret_cast<const __m128i*>(src)))));
+  } else if constexpr (std::is_same_v<T, std::uint8_t>) {
+    std::int32_t four;
+    std::memcpy(&four, src, sizeof four);
+    return reinterpret_cast<F4>(_mm_cvtepi32_ps(_mm_cvtepu8_epi32(_mm_cvtsi32_si128(four))));
+  } else {
+    return F4{static_cast<float>(load_pixel<T>(src, 0)), static_cast<float>(load_pixel<T>(src, 1)),
+              static_cast<float>(load_pixel<T>(src, 2)), static_cast<float>(load_pixel<T>(src, 3))};
+  }
+}
+
+// n pixels of type T from src, as floats, minus dark[0 .. n-1] when kDark:
+// four at a time, the last four overlapping the ones before when n is not
+// a multiple of 4 (the same values written twice), one by one when n < 4.
+template <typename T, bool kDark>
+void convert_run(const std::byte* src, const float* __restrict dark, float* __restrict out, int n) {
+  const auto four = [&](int x) {
+    F4 v = load4_as_float<T>(src + x * sizeof(T));
+    if constexpr (kDark) v -= load4(dark + x);
+    std::memcpy(out + x, &v, sizeof v);
+  };
+  if (n < 4) {
+    for (int x = 0; x < n; ++x) {
+      const float v = static_cast<float>(load_pixel<T>(src, static_cast<std::size_t>(x)));
+      out[x] = kDark ? v - dark[x] : v;
+    }
+    return;
+  }
+  int x = 0;
+  for (; x + 4 <= n; x += 4) four(x);
+  if (x < n) four(n - 4);
+}
+
+// The ring in ring order, minus the dark's ring values when there is a
+// dark: the top and bottom rows as two contiguous runs, then the side
+// pixels a row at a time.
+template <typename T, bool kDark>
+void gather_ring(const ImageView& image, const float* __restrict ring_dark, const Box& box, float* __restrict ring) {
+  const int w = box.width, h = box.height;
+  const std::size_t left = static_cast<std::size_t>(box.x0) * sizeof(T);
+  const auto dark_at = [&](int k) { return kDark ? ring_dark + k : nullptr; };
+  if (w < 3 || h < 3) {
+    for (int y = 0; y < h; ++y)
+      convert_run<T, kDark>(image.row(box.y0 + y) + left, dark_at(y * w), ring + y * w, w);
+    return;
+  }
+  convert_run<T, kDark>(image.row(box.y0) + left, dark_at(0), ring, w);
+  convert_run<T, kDark>(image.row(box.y0 + h - 1) + left, dark_at(w), ring + w, w);
+  const std::size_t right = static_cast<std::size_t>(w - 1) * sizeof(T);
+  const std::byte* row = image.row(box.y0 + 1) + left;
+#pragma GCC ivdep  // ring (float) and the frame (bytes) never overlap
+  for (int y = 1, k = 2 * w; y < h - 1; ++y, k += 2, row += image.row_stride_bytes) {
+    const float a = static_cast<float>(load_pixel<T>(row, 0)), b = static_cast<float>(load_pixel<T>(row + right, 0));
+    ring[k] = kDark ? a - ring_dark[k] : a;
+    ring[k + 1] = kDark ? b - ring_dark[k + 1] : b;
+  }
+}
+
 template <typename T>
 void gather_ring(const ImageView& image, const float* ring_dark, const Box& box, float* ring) {
-  int k = 0;
-  for_ring(box.width, box.height, [&](int x, int y) {
-    ring[k] = static_cast<float>(load_pixel<T>(image.row(box.y0 + y), box.x0 + x)) - (ring_dark ? ring_dark[k] : 0.0f);
-    ++k;
-  });
+  if (ring_dark)
+    gather_ring<T, true>(image, ring_dark, box, ring);
+  else
+    gather_ring<T, false>(image, ring_dark, box, ring);
 }
 }  // namespace
 
@@ -245,19 +320,170 @@ void ring_dark_values(std::span<const float> dark, int image_width, const Box& b
   });
 }
 
+void gather_border_raw(const ImageView& image, std::span<const float> ring_dark, const Box& box, float* ring) {
+  assert(ring_dark.empty() || ring_dark.size() >= static_cast<std::size_t>(border_pixel_count(box.width, box.height)));
+  const float* d = ring_dark.empty() ? nullptr : ring_dark.data();
+  switch (image.format) {
+    case PixelFormat::kU8: gather_ring<std::uint8_t>(image, d, box, ring); break;
+    case PixelFormat::kU16: gather_ring<std::uint16_t>(image, d, box, ring); break;
+    case PixelFormat::kU32: gather_ring<std::uint32_t>(image, d, box, ring); break;
+    case PixelFormat::kF32: gather_ring<float>(image, d, box, ring); break;
+  }
+}
+
 BorderStats border_stats_raw(const ImageView& image, std::span<const float> ring_dark, const Box& box,
                              std::span<float> scratch, BackgroundMode mode) {
   const int n = border_pixel_count(box.width, box.height);
   assert(scratch.size() >= 2 * static_cast<std::size_t>(n) + 8);
-  assert(ring_dark.empty() || ring_dark.size() >= static_cast<std::size_t>(n));
-  const float* d = ring_dark.empty() ? nullptr : ring_dark.data();
-  switch (image.format) {
-    case PixelFormat::kU8: gather_ring<std::uint8_t>(image, d, box, scratch.data()); break;
-    case PixelFormat::kU16: gather_ring<std::uint16_t>(image, d, box, scratch.data()); break;
-    case PixelFormat::kU32: gather_ring<std::uint32_t>(image, d, box, scratch.data()); break;
-    case PixelFormat::kF32: gather_ring<float>(image, d, box, scratch.data()); break;
+  gather_border_raw(image, ring_dark, box, scratch.data());
+  return stats_for(mode, scratch.data(), n);
+}
+
+namespace {
+
+// Eight rings at a time, one box per lane: every sum runs over the same
+// values in the same order as ring_stats() (its lane j, ring positions
+// k = j mod 4, becomes accumulator j here), so each box's figures are
+// bit-identical to ring_stats()'s; the padding ring_stats() adds changes
+// none of its sums (see there) and is not needed. Boxes that fail the
+// clean-ring test go to ring_stats() one by one. Built twice, for the
+// baseline and for AVX2 (no FMA in either, so no contraction changes a
+// rounding); tests compare both with ring_stats().
+constexpr int kBatch = 8;
+typedef float F8 __attribute__((vector_size(kBatch * 4)));
+typedef int I8 __attribute__((vector_size(kBatch * 4)));
+typedef double D8 __attribute__((vector_size(kBatch * 8)));
+
+[[gnu::always_inline]] inline void lane_sum8(const F8& a0, const F8& a1, const F8& a2, const F8& a3, D8& out) {
+  out = __builtin_convertvector(a0, D8) + __builtin_convertvector(a1, D8) + __builtin_convertvector(a2, D8) +
+        __builtin_convertvector(a3, D8);
+}
+
+// soa[k] holds ring value k of the eight boxes. For each lane: finite,
+// and when the ring is clean (fast test of ring_stats) its stats in out
+// with clean set.
+struct Batch8 {
+  bool finite[kBatch], clean[kBatch];
+  BorderStats stats[kBatch];
+};
+
+[[gnu::always_inline]] inline void batch_stats(const F8* soa, int n, Batch8& out) {
+  F8 s0 = {}, s1 = {}, s2 = {}, s3 = {}, z0 = {}, z1 = {}, z2 = {}, z3 = {};
+  int k = 0;
+  for (; k + 4 <= n; k += 4) {
+    s0 += soa[k];
+    z0 += soa[k] * 0.0f;
+    s1 += soa[k + 1];
+    z1 += soa[k + 1] * 0.0f;
+    s2 += soa[k + 2];
+    z2 += soa[k + 2] * 0.0f;
+    s3 += soa[k + 3];
+    z3 += soa[k + 3] * 0.0f;
   }
-  return stats_for(mode, scratch.data(), n, scratch.data() + n);
+  if (k < n) s0 += soa[k], z0 += soa[k] * 0.0f;
+  if (k + 1 < n) s1 += soa[k + 1], z1 += soa[k + 1] * 0.0f;
+  if (k + 2 < n) s2 += soa[k + 2], z2 += soa[k + 2] * 0.0f;
+  D8 zero, mean;
+  lane_sum8(z0, z1, z2, z3, zero);
+  lane_sum8(s0, s1, s2, s3, mean);
+  mean /= static_cast<double>(n);
+  const F8 mf = __builtin_convertvector(mean, F8);
+  F8 q0 = {}, q1 = {}, q2 = {}, q3 = {}, lo = soa[0], hi = soa[0];
+  const auto step = [&](F8& q, const F8& v) {
+    const F8 d = v - mf;
+    q += d * d;
+    lo = v < lo ? v : lo;
+    hi = v > hi ? v : hi;
+  };
+  for (k = 0; k + 4 <= n; k += 4) {
+    step(q0, soa[k]);
+    step(q1, soa[k + 1]);
+    step(q2, soa[k + 2]);
+    step(q3, soa[k + 3]);
+  }
+  if (k < n) step(q0, soa[k]);
+  if (k + 1 < n) step(q1, soa[k + 1]);
+  if (k + 2 < n) step(q2, soa[k + 2]);
+  D8 sum_sq;
+  lane_sum8(q0, q1, q2, q3, sum_sq);
+  F8 low = {}, high = {};
+  for (int b = 0; b < kBatch; ++b) {
+    const double c = 3.5 * std::max(std::sqrt(sum_sq[b] / n), static_cast<double>(kRoundingSigma));
+    low[b] = static_cast<float>(hi[b] - c);
+    high[b] = static_cast<float>(lo[b] + c);
+  }
+  I8 below = {}, above = {};
+  for (k = 0; k < n; ++k) {
+    below -= soa[k] < low;
+    above -= soa[k] > high;
+  }
+  const int mid = n / 2;
+  for (int b = 0; b < kBatch; ++b) {
+    out.finite[b] = zero[b] == 0.0;
+    out.clean[b] = out.finite[b] && below[b] <= mid - 1 && above[b] <= n - mid - 1;
+    if (!out.clean[b]) continue;
+    BorderStats& st = out.stats[b];
+    st.n_border = n;
+    st.level_adu = mf[b];
+    st.n_kept = n;
+    st.sigma_adu = std::max(static_cast<float>(n > 1 ? std::sqrt(sum_sq[b] / (n - 1)) : 0.0), kRoundingSigma);
+  }
+}
+
+void batch_baseline(const F8* soa, int n, Batch8& out) { batch_stats(soa, n, out); }
+[[gnu::target("avx2")]] void batch_avx2(const F8* soa, int n, Batch8& out) { batch_stats(soa, n, out); }
+
+}  // namespace
+
+void border_stats_batch(float* rings, int stride, int count, int n, BackgroundMode mode, std::span<BorderStats> out,
+                        std::span<float> soa, SimdLevel simd) {
+  assert(stride >= 2 * n + 8 && out.size() >= static_cast<std::size_t>(count));
+  if (mode == BackgroundMode::kBorderMedian || n < 4) {
+    for (int i = 0; i < count; ++i) out[i] = stats_for(mode, rings + static_cast<std::size_t>(i) * stride, n);
+    return;
+  }
+  assert(soa.size() >= static_cast<std::size_t>(border_batch_scratch_size(n)));
+  void* start = soa.data();
+  std::size_t room = soa.size() * sizeof(float);
+  // 32 bytes: an AVX2 register (alignof(F8) is only 16 in the baseline build).
+  F8* v = static_cast<F8*>(std::align(32, sizeof(F8) * n, start, room));
+  assert(v != nullptr);
+  const auto batch = simd == SimdLevel::kAvx2 ? batch_avx2 : batch_baseline;
+  Batch8 result;
+  for (int first = 0; first < count; first += kBatch) {
+    // Transposed: v[k][b] = ring value k of box first + b (the last box
+    // repeated in lanes past count).
+    // 4 x 4 blocks through SSE registers; the rings are readable to a
+    // multiple of 4 (the values past n are not used).
+    for (int q = 0; q < kBatch; q += 4) {
+      const float* r[4];
+      for (int j = 0; j < 4; ++j) r[j] = rings + static_cast<std::size_t>(std::min(first + q + j, count - 1)) * stride;
+      for (int k = 0; k < n; k += 4) {
+        __m128 a = _mm_loadu_ps(r[0] + k), b = _mm_loadu_ps(r[1] + k), c = _mm_loadu_ps(r[2] + k),
+               d = _mm_loadu_ps(r[3] + k);
+        _MM_TRANSPOSE4_PS(a, b, c, d);
+        float* out_k = reinterpret_cast<float*>(v + k) + q;
+        _mm_storeu_ps(out_k, a);
+        _mm_storeu_ps(out_k + kBatch, b);
+        _mm_storeu_ps(out_k + 2 * kBatch, c);
+        _mm_storeu_ps(out_k + 3 * kBatch, d);
+      }
+    }
+    batch(v, n, result);
+    for (int b = 0; b < kBatch && first + b < count; ++b) {
+      BorderStats& st = out[first + b];
+      if (result.clean[b]) {
+        st = result.stats[b];
+      } else if (!result.finite[b]) {
+        st = BorderStats{};
+        st.n_border = n;
+        st.finite = false;
+      } else {
+        st = ring_stats(rings + static_cast<std::size_t>(first + b) * stride, n,
+                        rings + static_cast<std::size_t>(first + b) * stride + n + 4);
+      }
+    }
+  }
 }
 
 void subtract_constant(float* data, int width, int height, int stride, float value) {

@@ -35,6 +35,7 @@
 #include <span>
 
 #include "daemon/core/frame/image_view.h"
+#include "daemon/core/frame/raw_columns.h"
 
 namespace slopecast::core {
 
@@ -87,6 +88,20 @@ BorderStats border_stats_raw(const ImageView& image, std::span<const float> ring
 // once per box, so that the frame loop reads them contiguously). dark is
 // row-major, image_width wide.
 void ring_dark_values(std::span<const float> dark, int image_width, const Box& box, float* out);
+
+// The pieces of the two above, for many boxes at once (the pipeline's
+// path): gather a box's ring in ring order into ring (room for
+// border_scratch_size floats), then border_stats_batch() on the gathered
+// rings, rings[i * stride ...] for box i (stride >= border_scratch_size; the
+// rings are overwritten). out[i] is bit for bit what border_stats() gives
+// for ring i: eight boxes share vector lanes, with every sum in the same
+// order. soa: border_batch_scratch_size(n) floats of scratch.
+// simd picks the AVX2 build of the same source (frame/raw_columns.h).
+void gather_border(const WindowView& window, float* ring);
+void gather_border_raw(const ImageView& image, std::span<const float> ring_dark, const Box& box, float* ring);
+inline int border_batch_scratch_size(int n_ring) { return 8 * (n_ring + 4) + 8; }
+void border_stats_batch(float* rings, int stride, int count, int n_ring, BackgroundMode mode,
+                        std::span<BorderStats> out, std::span<float> soa, SimdLevel simd);
 
 // Subtracts value from every pixel of the window (the window's memory is
 // writable scratch in the pipeline, hence the cast-free float* argument).

@@ -1,5 +1,7 @@
 #include "daemon/core/metrics/window_moments.h"
 
+#include <immintrin.h>
+
 #include <algorithm>
 #include <cassert>
 #include <cmath>
@@ -42,27 +44,92 @@ FoldedDark fold_dark(std::span<const float> dark, int image_width, int x0, int y
   return d;
 }
 
-WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level,
-                             std::span<const PixelPatch> patches) {
-  // Integer sums over the window's columns (exact: each term < 2^32, at
-  // most a few hundred of them).
+namespace {
+// The box's six integer sums over its columns, and the largest column
+// maximum.
+struct BoxSums {
   std::int64_t r00 = 0, r10 = 0, r20 = 0, r01 = 0, r11 = 0, r02 = 0;
   std::uint32_t peak = 0;
+};
+
+BoxSums box_sums_wide(const RawColumns& cols, int x0, int w) {
+  BoxSums b;
   const std::uint32_t* c_s = cols.s + x0;
   const std::uint32_t* c_sy = cols.sy + x0;
   const std::uint32_t* c_syy = cols.syy + x0;
   const std::uint32_t* c_max = cols.max + x0;
   for (int x = 0; x < w; ++x) {
     const std::int64_t xs = static_cast<std::int64_t>(x) * c_s[x];
-    r00 += c_s[x];
-    r10 += xs;
-    r20 += x * xs;
-    r01 += c_sy[x];
-    r11 += static_cast<std::int64_t>(x) * c_sy[x];
-    r02 += c_syy[x];
-    peak = peak > c_max[x] ? peak : c_max[x];
+    b.r00 += c_s[x];
+    b.r10 += xs;
+    b.r20 += x * xs;
+    b.r01 += c_sy[x];
+    b.r11 += static_cast<std::int64_t>(x) * c_sy[x];
+    b.r02 += c_syy[x];
+    b.peak = b.peak > c_max[x] ? b.peak : c_max[x];
   }
-  (void)h;
+  return b;
+}
+
+std::uint32_t lane_total(__m128i v) {
+  v = _mm_add_epi32(v, _mm_shuffle_epi32(v, _MM_SHUFFLE(1, 0, 3, 2)));
+  v = _mm_add_epi32(v, _mm_shuffle_epi32(v, _MM_SHUFFLE(2, 3, 0, 1)));
+  return static_cast<std::uint32_t>(_mm_cvtsi128_si32(v));
+}
+
+// The same sums in 32-bit lanes, four columns at a time (SSE4.1, the
+// x86-64-v2 baseline): arithmetic modulo 2^32, exact because every sum's
+// true value is below 2^32 (box_sums_fit_32). Columns past w are masked to
+// 0; the arrays hold kRawColumnSlack readable entries past the strip.
+BoxSums box_sums_32(const RawColumns& cols, int x0, int w) {
+  __m128i r00 = _mm_setzero_si128(), r10 = r00, r20 = r00, r01 = r00, r11 = r00, r02 = r00, peak = r00;
+  __m128i x = _mm_setr_epi32(0, 1, 2, 3);
+  const __m128i four = _mm_set1_epi32(4), width = _mm_set1_epi32(w);
+  const auto load = [](const std::uint32_t* p) { return _mm_loadu_si128(reinterpret_cast<const __m128i*>(p)); };
+  for (int c = 0; c < w; c += 4, x = _mm_add_epi32(x, four)) {
+    const __m128i in = _mm_cmplt_epi32(x, width);
+    const __m128i s = _mm_and_si128(in, load(cols.s + x0 + c));
+    const __m128i sy = _mm_and_si128(in, load(cols.sy + x0 + c));
+    const __m128i syy = _mm_and_si128(in, load(cols.syy + x0 + c));
+    const __m128i xs = _mm_mullo_epi32(x, s);
+    r00 = _mm_add_epi32(r00, s);
+    r10 = _mm_add_epi32(r10, xs);
+    r20 = _mm_add_epi32(r20, _mm_mullo_epi32(x, xs));
+    r01 = _mm_add_epi32(r01, sy);
+    r11 = _mm_add_epi32(r11, _mm_mullo_epi32(x, sy));
+    r02 = _mm_add_epi32(r02, syy);
+    peak = _mm_max_epu32(peak, _mm_and_si128(in, load(cols.max + x0 + c)));
+  }
+  BoxSums b;
+  b.r00 = lane_total(r00);
+  b.r10 = lane_total(r10);
+  b.r20 = lane_total(r20);
+  b.r01 = lane_total(r01);
+  b.r11 = lane_total(r11);
+  b.r02 = lane_total(r02);
+  peak = _mm_max_epu32(peak, _mm_shuffle_epi32(peak, _MM_SHUFFLE(1, 0, 3, 2)));
+  peak = _mm_max_epu32(peak, _mm_shuffle_epi32(peak, _MM_SHUFFLE(2, 3, 0, 1)));
+  b.peak = static_cast<std::uint32_t>(_mm_cvtsi128_si32(peak));
+  return b;
+}
+}  // namespace
+
+bool box_sums_fit_32(int w, int h, std::uint32_t max_pixel) {
+  // The largest of the six sums when every pixel is max_pixel, in exact
+  // double arithmetic (all terms are integers far below 2^53).
+  const double v = max_pixel, sx = 0.5 * w * (w - 1.0), sy = 0.5 * h * (h - 1.0);
+  const double sxx = (w - 1.0) * w * (2.0 * w - 1.0) / 6.0, syy = (h - 1.0) * h * (2.0 * h - 1.0) / 6.0;
+  const double largest = v * std::max({1.0 * w * h, h * sx, w * sy, h * sxx, w * syy, sx * sy});
+  return largest < 4294967296.0;
+}
+
+WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level,
+                             std::span<const PixelPatch> patches, bool fits_32) {
+  // Integer sums over the window's columns (exact: each term < 2^32, at
+  // most a few hundred of them), in 32-bit lanes where they fit.
+  const BoxSums r = fits_32 ? box_sums_32(cols, x0, w) : box_sums_wide(cols, x0, w);
+  const std::int64_t r00 = r.r00, r10 = r.r10, r20 = r.r20, r01 = r.r01, r11 = r.r11, r02 = r.r02;
+  const std::uint32_t peak = r.peak;
   // The level's sums over the box geometry.
   const double sx = 0.5 * w * (w - 1.0), sy = 0.5 * h * (h - 1.0);
   const double sxx = (w - 1.0) * w * (2.0 * w - 1.0) / 6.0, syy = (h - 1.0) * h * (2.0 * h - 1.0) / 6.0;

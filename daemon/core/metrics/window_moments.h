@@ -28,6 +28,7 @@
 // the column sums weighted by the column's x, so one sweep gives everything.
 #pragma once
 
+#include <cstdint>
 #include <span>
 #include <vector>
 
@@ -84,8 +85,15 @@ struct RawColumns;
 // Moments of the w x h window whose raw column sums are cols[x0 .. x0+w-1]
 // (accumulated over h rows), minus dark and a uniform level, plus patches.
 // peak is the brightest raw pixel (the column maxima), not corrected.
+// fits_32: box_sums_fit_32(w, h, the format's largest pixel), when the
+// box's integer sums are formed in 32-bit lanes, four columns at a time,
+// which then read up to kRawColumnSlack entries past x0 + w - 1 (ignored).
+// Either way the sums are exact and the result the same.
 WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level,
-                             std::span<const PixelPatch> patches = {});
+                             std::span<const PixelPatch> patches = {}, bool fits_32 = false);
+// Whether every integer sum of a w x h box of pixels up to max_pixel is
+// below 2^32 (u16: boxes up to 21 x 21 px; u8: every box the folded path takes).
+bool box_sums_fit_32(int w, int h, std::uint32_t max_pixel);
 
 class MomentAccumulator {
  public:

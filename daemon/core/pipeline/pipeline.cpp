@@ -98,13 +98,14 @@ Pipeline::Lane::Lane(const PipelineSettings& s, int max_run, bool strip, bool ra
     : centroider(make_centroider(s.centroider, s.grid.pitch_px)),
       strip(strip ? static_cast<std::size_t>(s.grid.pitch_px) * max_run * s.grid.pitch_px : 0),
       column_max(static_cast<std::size_t>(max_run) * s.grid.pitch_px),
-      border(static_cast<std::size_t>(border_scratch_size(s.grid.pitch_px, s.grid.pitch_px))),
+      rings(static_cast<std::size_t>(max_run) * border_scratch_size(s.grid.pitch_px, s.grid.pitch_px)),
+      ring_soa(static_cast<std::size_t>(border_batch_scratch_size(border_pixel_count(s.grid.pitch_px, s.grid.pitch_px)))),
       moments(max_run * s.grid.pitch_px),
       strip_moments(static_cast<std::size_t>(max_run)),
       raw_box(static_cast<std::size_t>(s.grid.pitch_px) * s.grid.pitch_px) {
   if (raw_columns)
     for (auto* v : {&col_s, &col_sy, &col_syy, &col_max})
-      v->assign(static_cast<std::size_t>(max_run) * s.grid.pitch_px, 0u);
+      v->assign(static_cast<std::size_t>(max_run) * s.grid.pitch_px + kRawColumnSlack, 0u);
 }
 
 Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel> simd)
@@ -115,6 +116,8 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
       needs_pixels_(settings_.centroider.kind != CentroiderKind::kCog || !folded_),
       simd_(simd.value_or(best_simd_level())),
       kernel_(folded_ ? raw_column_kernel(settings_.camera.format, simd_) : nullptr),
+      sums_fit_32_(folded_ && box_sums_fit_32(settings_.grid.pitch_px, settings_.grid.pitch_px,
+                                              static_cast<std::uint32_t>(full_scale_adu(settings_.camera.format)))),
       borders_(static_cast<std::size_t>(settings_.grid.count())),
       estimates_(static_cast<std::size_t>(settings_.grid.count())),
       contexts_(static_cast<std::size_t>(settings_.grid.count())),
@@ -185,9 +188,10 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
   }
   box_fixes_[boxes_.size()] = static_cast<int>(bad_fixes_.size());
   for (Lane& l : lanes_) l.patches.resize(most_in_a_box);
+  ring_pixels_ = border_pixel_count(settings_.grid.pitch_px, settings_.grid.pitch_px);
+  ring_stride_ = border_scratch_size(settings_.grid.pitch_px, settings_.grid.pitch_px);
   if (folded_) {
     const int p = settings_.grid.pitch_px;
-    ring_pixels_ = border_pixel_count(p, p);
     if (!offset_.empty()) {
       ring_dark_.resize(n * ring_pixels_);
       for (std::size_t i = 0; i < n; ++i)
@@ -237,24 +241,32 @@ void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, 
         lane.strip[f.at] = f.n ? sum / f.n : 0.0f;
       }
     }
+    // The boxes' border rings, then their statistics, eight boxes at a time.
+    for (int ix = 0; ix < n_boxes; ++ix) {
+      const int i = row0 + ix;
+      float* ring = lane.rings.data() + static_cast<std::size_t>(ix) * ring_stride_;
+      if (needs_pixels_)
+        gather_border(strip.window(ix), ring);
+      else
+        gather_border_raw(image,
+                          ring_dark_.empty() ? std::span<const float>()
+                                             : std::span<const float>(ring_dark_).subspan(
+                                                   static_cast<std::size_t>(i) * ring_pixels_, ring_pixels_),
+                          Box{boxes_[i].x0, boxes_[i].y0, p, p}, ring);
+    }
+    border_stats_batch(lane.rings.data(), ring_stride_, n_boxes, ring_pixels_, s.background,
+                       std::span<BorderStats>(borders_).subspan(row0, n_boxes), lane.ring_soa, simd_);
     for (int ix = 0; ix < n_boxes; ++ix) {
       const int i = row0 + ix;
       const Box box{boxes_[i].x0, boxes_[i].y0, p, p};
-      BorderStats& b = borders_[i];
-      b = needs_pixels_ ? border_stats(strip.window(ix), lane.border, s.background)
-                        : border_stats_raw(image,
-                                           ring_dark_.empty()
-                                               ? std::span<const float>()
-                                               : std::span<const float>(ring_dark_).subspan(
-                                                     static_cast<std::size_t>(i) * ring_pixels_, ring_pixels_),
-                                           box, lane.border, s.background);
+      const BorderStats& b = borders_[i];
       const float level = subtract && b.finite ? b.level_adu : 0.0f;
       if (needs_pixels_ && level != 0.0f) subtract_constant(lane.strip.data() + ix * p, p, p, strip_width, level);
       if (folded_) {
         const int nbad = box_fixes_[i + 1] - box_fixes_[i];
         if (nbad > 0) repair_folded(image, i, lane);
         contexts_[i].moments = folded_moments(cols, ix * p, p, p, folded_dark_[i], level,
-                                              std::span<const PixelPatch>(lane.patches.data(), nbad));
+                                              std::span<const PixelPatch>(lane.patches.data(), nbad), sums_fit_32_);
         raw_max_[i] = static_cast<float>(nbad > 0 ? good_raw_max(image, box) : contexts_[i].moments.peak);
         contexts_[i].moments.peak = raw_max_[i];
       } else {

@@ -185,7 +185,8 @@ class Pipeline {
     std::unique_ptr<Centroider> centroider;
     std::vector<float> strip;                // one corrected row of boxes (when pixels are read)
     std::vector<float> column_max;           // raw maximum of each strip column (float path)
-    std::vector<float> border;               // one box's border ring
+    std::vector<float> rings;                // the run's border rings, ring_stride apart
+    std::vector<float> ring_soa;             // border_stats_batch's scratch
     MomentAccumulator moments;               // float path
     std::vector<WindowMoments> strip_moments;
     std::vector<std::uint32_t> col_s, col_sy, col_syy, col_max;  // raw column sums (folded path)
@@ -217,9 +218,11 @@ class Pipeline {
   bool needs_pixels_;
   SimdLevel simd_;
   RawColumnKernel kernel_;
+  bool sums_fit_32_;  // box sums in 32-bit lanes (folded path; box_sums_fit_32)
   std::vector<FoldedDark> folded_dark_;  // per box (folded path)
   std::vector<float> ring_dark_;         // per box, its ring's dark values in ring order (folded path)
-  int ring_pixels_ = 0;
+  int ring_pixels_ = 0;   // pixels in a box's border ring
+  int ring_stride_ = 0;   // floats between two boxes' rings in Lane::rings
   std::vector<Lane> lanes_;
   std::vector<BorderStats> borders_;     // one per box of the grid
   std::vector<SpotEstimate> estimates_;  // one per box of the grid
