@@ -6,7 +6,8 @@
 // that reads every pixel once), and OpenCV's cv::moments on every window of
 // the frame (what a careful lab script would call) -- then
 // Pipeline::measure with each method at its default settings (dark,
-// border background, moments, the method, flags and slopes), the CoG with
+// border background, moments, the method, flags and slopes), the CoG's
+// pixel work alone (column sums and box moments, see BM_pixel_work), the CoG with
 // two worker threads, the CoG with the dark alone (no background
 // estimate), and the CoG plus building and serialising the
 // measurement protobuf as the daemon does per frame, and the CoG over
@@ -38,6 +39,8 @@
 #include "client/sim/spot_field.h"
 #include "client/sim/spot_image.h"
 #include "daemon/app/row_workers.h"
+#include "daemon/core/frame/raw_columns.h"
+#include "daemon/core/metrics/window_moments.h"
 #include "daemon/core/pipeline/pipeline.h"
 #include "daemon/io/wire_codec.h"
 
@@ -162,6 +165,33 @@ void BM_measure_dark_only(benchmark::State& state, Sensor s, bool cold) {
   per_frame(state, f, cold, [&] {
     p.measure(f.view(), m);
     benchmark::DoNotOptimize(m.slope_x_px.data());
+  });
+}
+
+// The CoG's pixel work alone, as the folded path does it: the raw integer
+// column sums of each row of boxes and each box's moments from them, the
+// dark folded out as per-box constants. No border ring, no decisions, no
+// slopes: what the measurement costs beyond this row is per-box work,
+// whatever the pixel count.
+void BM_pixel_work(benchmark::State& state, Sensor s, bool cold) {
+  const Fixture f = make_fixture(s);
+  const int p = s.pitch, side = s.n * s.pitch;
+  const auto kernel = core::raw_column_kernel(core::PixelFormat::kU16, core::best_simd_level());
+  std::vector<std::uint32_t> cs(side + core::kRawColumnSlack), csy(cs.size()), csyy(cs.size()), cmax(cs.size());
+  const core::RawColumns cols{cs.data(), csy.data(), csyy.data(), cmax.data()};
+  std::vector<core::FoldedDark> dark;
+  for (int iy = 0; iy < s.n; ++iy)
+    for (int ix = 0; ix < s.n; ++ix) dark.push_back(core::fold_dark(f.settings.dark_adu, side, ix * p, iy * p, p, p));
+  const bool fits_32 = core::box_sums_fit_32(p, p, 65535);
+  const std::vector<float> levels(s.n, 0.0f);
+  std::vector<core::WindowMoments> moments(s.n);
+  per_frame(state, f, cold, [&] {
+    for (int iy = 0; iy < s.n; ++iy) {
+      kernel(f.view(), 0, iy * p, side, p, cols);
+      core::folded_moments_run(cols, s.n, p, p, dark.data() + static_cast<std::size_t>(iy) * s.n, levels.data(),
+                               fits_32, core::best_simd_level(), moments.data());
+      benchmark::DoNotOptimize(moments.data());
+    }
   });
 }
 
@@ -295,6 +325,7 @@ int main(int argc, char** argv) {
         cap(benchmark::RegisterBenchmark(name(fmt::format("measure/{}", core::centroider_name(k))).c_str(),
                                          BM_measure, s, k, cold));
       cap(benchmark::RegisterBenchmark(name("measure/cog-dark-only").c_str(), BM_measure_dark_only, s, cold));
+      cap(benchmark::RegisterBenchmark(name("pixel-work/cog").c_str(), BM_pixel_work, s, cold));
       cap(benchmark::RegisterBenchmark(name("measure/cog-2-threads").c_str(), BM_measure_threads, s, 2, cold));
       cap(benchmark::RegisterBenchmark(name("measure+encode/cog").c_str(), BM_measure_encode, s, cold));
       for (auto [label, layout] : {std::pair{"turned", Layout::kTurned}, std::pair{"single", Layout::kSingle},
@@ -329,6 +360,7 @@ int main(int argc, char** argv) {
     for (core::CentroiderKind k : core::kAllCentroiderKinds)
       row(std::string(core::centroider_name(k)), fmt::format("measure/{}", core::centroider_name(k)));
     row("cog, dark only", "measure/cog-dark-only");
+    row("cog pixel work only", "pixel-work/cog");
     row("cog, 2 threads", "measure/cog-2-threads");
     row("cog + encode", "measure+encode/cog");
     row("cog, turned layout", "measure/cog-turned");

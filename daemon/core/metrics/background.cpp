@@ -295,12 +295,19 @@ void gather_ring(const ImageView& image, const float* __restrict ring_dark, cons
   convert_run<T, kDark>(image.row(box.y0) + left, dark_at(0), ring, w);
   convert_run<T, kDark>(image.row(box.y0 + h - 1) + left, dark_at(w), ring + w, w);
   const std::size_t right = static_cast<std::size_t>(w - 1) * sizeof(T);
+  // The side pixels, two per row, as pairs: (left, right) of a row are
+  // ring values k, k + 1 with k even, so one 2-lane subtraction per row.
   const std::byte* row = image.row(box.y0 + 1) + left;
-#pragma GCC ivdep  // ring (float) and the frame (bytes) never overlap
-  for (int y = 1, k = 2 * w; y < h - 1; ++y, k += 2, row += image.row_stride_bytes) {
-    const float a = static_cast<float>(load_pixel<T>(row, 0)), b = static_cast<float>(load_pixel<T>(row + right, 0));
-    ring[k] = kDark ? a - ring_dark[k] : a;
-    ring[k + 1] = kDark ? b - ring_dark[k + 1] : b;
+  const std::size_t stride = image.row_stride_bytes;
+  for (int y = 1, k = 2 * w; y < h - 1; ++y, k += 2, row += stride) {
+    typedef float F2 __attribute__((vector_size(8)));
+    F2 v = {static_cast<float>(load_pixel<T>(row, 0)), static_cast<float>(load_pixel<T>(row + right, 0))};
+    if constexpr (kDark) {
+      F2 d;
+      std::memcpy(&d, ring_dark + k, sizeof d);
+      v -= d;
+    }
+    std::memcpy(ring + k, &v, sizeof v);
   }
 }
 

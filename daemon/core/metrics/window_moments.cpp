@@ -162,6 +162,87 @@ WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const
   return m;
 }
 
+namespace {
+// Four boxes' moments from their sums, one box per lane: the operations of
+// folded_moments(), in its order, on each lane (IEEE arithmetic gives
+// each lane the scalar result; neither build has FMA to contract with).
+constexpr int kBoxLanes = 4;
+typedef double D4 __attribute__((vector_size(kBoxLanes * 8)));
+
+struct BoxLanes {
+  D4 r00, r10, r20, r01, r11, r02, d00, d10, d01, d20, d02, d11, level;
+};
+struct MomentLanes {
+  D4 m00, cx, cy, var_x, var_y, cov_xy;
+};
+
+[[gnu::always_inline]] inline void moments_x4(const BoxLanes& in, int w, int h, MomentLanes& out) {
+  const double sx = 0.5 * w * (w - 1.0), sy = 0.5 * h * (h - 1.0);
+  const double sxx = (w - 1.0) * w * (2.0 * w - 1.0) / 6.0, syy = (h - 1.0) * h * (2.0 * h - 1.0) / 6.0;
+  const double wd = w, hd = h;
+  const D4 m00 = in.r00 - in.d00 - in.level * wd * hd;
+  const D4 m10 = in.r10 - in.d10 - in.level * hd * sx;
+  const D4 m01 = in.r01 - in.d01 - in.level * wd * sy;
+  const D4 m20 = in.r20 - in.d20 - in.level * hd * sxx;
+  const D4 m02 = in.r02 - in.d02 - in.level * wd * syy;
+  const D4 m11 = in.r11 - in.d11 - in.level * sx * sy;
+  out.m00 = m00;
+  out.cx = m10 / m00;
+  out.cy = m01 / m00;
+  out.var_x = m20 / m00 - out.cx * out.cx;
+  out.var_y = m02 / m00 - out.cy * out.cy;
+  out.cov_xy = m11 / m00 - out.cx * out.cy;
+}
+
+void moments_x4_baseline(const BoxLanes& in, int w, int h, MomentLanes& out) { moments_x4(in, w, h, out); }
+[[gnu::target("avx2")]] void moments_x4_avx2(const BoxLanes& in, int w, int h, MomentLanes& out) {
+  moments_x4(in, w, h, out);
+}
+}  // namespace
+
+void folded_moments_run(const RawColumns& cols, int count, int w, int h, const FoldedDark* dark, const float* level,
+                        bool fits_32, SimdLevel simd, WindowMoments* out) {
+  const auto kernel = simd == SimdLevel::kAvx2 ? moments_x4_avx2 : moments_x4_baseline;
+  BoxLanes in;
+  MomentLanes m;
+  std::uint32_t peak[kBoxLanes];
+  for (int first = 0; first < count; first += kBoxLanes) {
+    for (int b = 0; b < kBoxLanes; ++b) {
+      const int k = std::min(first + b, count - 1);  // lanes past count repeat the last box
+      const BoxSums r = fits_32 ? box_sums_32(cols, k * w, w) : box_sums_wide(cols, k * w, w);
+      in.r00[b] = static_cast<double>(r.r00);
+      in.r10[b] = static_cast<double>(r.r10);
+      in.r20[b] = static_cast<double>(r.r20);
+      in.r01[b] = static_cast<double>(r.r01);
+      in.r11[b] = static_cast<double>(r.r11);
+      in.r02[b] = static_cast<double>(r.r02);
+      in.d00[b] = dark[k].d00;
+      in.d10[b] = dark[k].d10;
+      in.d01[b] = dark[k].d01;
+      in.d20[b] = dark[k].d20;
+      in.d02[b] = dark[k].d02;
+      in.d11[b] = dark[k].d11;
+      in.level[b] = level[k];
+      peak[b] = r.peak;
+    }
+    kernel(in, w, h, m);
+    for (int b = 0; b < kBoxLanes && first + b < count; ++b) {
+      WindowMoments& o = out[first + b];
+      o = WindowMoments{};
+      o.flux = m.m00[b];
+      o.peak = peak[b];
+      if (!(m.m00[b] > 0.0)) continue;
+      o.cx = m.cx[b];
+      o.cy = m.cy[b];
+      o.var_x = m.var_x[b];
+      o.var_y = m.var_y[b];
+      o.cov_xy = m.cov_xy[b];
+      o.located = std::isfinite(o.cx) && std::isfinite(o.cy) && std::isfinite(o.var_x) && std::isfinite(o.var_y);
+      if (!o.located) o.cx = o.cy = o.var_x = o.var_y = o.cov_xy = 0.0;
+    }
+  }
+}
+
 MomentAccumulator::MomentAccumulator(int max_width)
     : col_sum_(static_cast<std::size_t>(max_width)),
       col_y_(static_cast<std::size_t>(max_width)),

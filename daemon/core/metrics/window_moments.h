@@ -82,6 +82,7 @@ struct PixelPatch {
 };
 
 struct RawColumns;
+enum class SimdLevel;
 // Moments of the w x h window whose raw column sums are cols[x0 .. x0+w-1]
 // (accumulated over h rows), minus dark and a uniform level, plus patches.
 // peak is the brightest raw pixel (the column maxima), not corrected.
@@ -91,6 +92,13 @@ struct RawColumns;
 // Either way the sums are exact and the result the same.
 WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level,
                              std::span<const PixelPatch> patches = {}, bool fits_32 = false);
+// folded_moments() of count boxes side by side in one run of column sums
+// (box k's columns from k * w), dark[k] and level[k] for box k, without
+// patches, into out[k]: bit for bit what folded_moments() gives, with the
+// per-box arithmetic four boxes at a time in vector lanes. simd picks the
+// AVX2 build of the same source (frame/raw_columns.h).
+void folded_moments_run(const RawColumns& cols, int count, int w, int h, const FoldedDark* dark, const float* level,
+                        bool fits_32, SimdLevel simd, WindowMoments* out);
 // Whether every integer sum of a w x h box of pixels up to max_pixel is
 // below 2^32 (u16: boxes up to 21 x 21 px; u8: every box the folded path takes).
 bool box_sums_fit_32(int w, int h, std::uint32_t max_pixel);

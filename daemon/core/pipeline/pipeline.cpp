@@ -102,7 +102,9 @@ Pipeline::Lane::Lane(const PipelineSettings& s, int max_run, bool strip, bool ra
       ring_soa(static_cast<std::size_t>(border_batch_scratch_size(border_pixel_count(s.grid.pitch_px, s.grid.pitch_px)))),
       moments(max_run * s.grid.pitch_px),
       strip_moments(static_cast<std::size_t>(max_run)),
-      raw_box(static_cast<std::size_t>(s.grid.pitch_px) * s.grid.pitch_px) {
+      raw_box(static_cast<std::size_t>(s.grid.pitch_px) * s.grid.pitch_px),
+      levels(static_cast<std::size_t>(max_run)),
+      run_moments(static_cast<std::size_t>(max_run)) {
   if (raw_columns)
     for (auto* v : {&col_s, &col_sy, &col_syy, &col_max})
       v->assign(static_cast<std::size_t>(max_run) * s.grid.pitch_px + kRawColumnSlack, 0u);
@@ -257,16 +259,29 @@ void Pipeline::measure_runs(const ImageView& image, int run_begin, int run_end, 
     border_stats_batch(lane.rings.data(), ring_stride_, n_boxes, ring_pixels_, s.background,
                        std::span<BorderStats>(borders_).subspan(row0, n_boxes), lane.ring_soa, simd_);
     for (int ix = 0; ix < n_boxes; ++ix) {
+      const BorderStats& b = borders_[row0 + ix];
+      lane.levels[ix] = subtract && b.finite ? b.level_adu : 0.0f;
+    }
+    // Folded path: every box's moments from the column sums, four boxes at
+    // a time; a box with bad pixels again, alone, with its repairs.
+    if (folded_)
+      folded_moments_run(cols, n_boxes, p, p, folded_dark_.data() + row0, lane.levels.data(), sums_fit_32_, simd_,
+                         lane.run_moments.data());
+    for (int ix = 0; ix < n_boxes; ++ix) {
       const int i = row0 + ix;
       const Box box{boxes_[i].x0, boxes_[i].y0, p, p};
       const BorderStats& b = borders_[i];
-      const float level = subtract && b.finite ? b.level_adu : 0.0f;
+      const float level = lane.levels[ix];
       if (needs_pixels_ && level != 0.0f) subtract_constant(lane.strip.data() + ix * p, p, p, strip_width, level);
       if (folded_) {
         const int nbad = box_fixes_[i + 1] - box_fixes_[i];
-        if (nbad > 0) repair_folded(image, i, lane);
-        contexts_[i].moments = folded_moments(cols, ix * p, p, p, folded_dark_[i], level,
-                                              std::span<const PixelPatch>(lane.patches.data(), nbad), sums_fit_32_);
+        if (nbad > 0) {
+          repair_folded(image, i, lane);
+          contexts_[i].moments = folded_moments(cols, ix * p, p, p, folded_dark_[i], level,
+                                                std::span<const PixelPatch>(lane.patches.data(), nbad), sums_fit_32_);
+        } else {
+          contexts_[i].moments = lane.run_moments[ix];
+        }
         raw_max_[i] = static_cast<float>(nbad > 0 ? good_raw_max(image, box) : contexts_[i].moments.peak);
         contexts_[i].moments.peak = raw_max_[i];
       } else {

@@ -192,6 +192,8 @@ class Pipeline {
     std::vector<std::uint32_t> col_s, col_sy, col_syy, col_max;  // raw column sums (folded path)
     std::vector<float> raw_box;              // one box's raw pixels, to count saturated ones
     std::vector<PixelPatch> patches;         // one box's bad-pixel repairs (folded path)
+    std::vector<float> levels;               // the run's boxes' background levels (0 when not subtracted)
+    std::vector<WindowMoments> run_moments;  // the run's boxes' moments (folded path)
   };
 
   // A bad pixel and its good neighbours (of the 8, those inside the same

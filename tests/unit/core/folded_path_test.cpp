@@ -10,6 +10,7 @@
 #include "client/sim/detector_model.h"
 #include "client/sim/spot_field.h"
 #include "daemon/core/frame/raw_columns.h"
+#include "daemon/core/metrics/window_moments.h"
 #include "daemon/core/pipeline/pipeline.h"
 
 using namespace slopecast;
@@ -178,4 +179,58 @@ TEST_CASE("rows measured on several lanes give exactly what one lane gives", "[f
     CHECK(a.flux_adu == b.flux_adu);
     CHECK(a.n_valid == b.n_valid);
   }
+}
+
+TEST_CASE("box moments formed four boxes at a time equal each box's alone, bit for bit, on both builds",
+          "[folded][simd]") {
+  // folded_moments_run() does folded_moments()'s arithmetic with one box
+  // per vector lane, in the same order, and its integer sums in 32-bit
+  // lanes where box_sums_fit_32 allows: nothing may differ. Full-scale
+  // pixels at 21 px (the largest u16 box whose sums fit in 32 bits) test
+  // that bound; 24 px takes the 64-bit sums. Dark and level make some
+  // boxes' flux zero or negative (not located).
+  std::mt19937 rng(31);
+  CHECK(core::box_sums_fit_32(21, 21, 65535));
+  CHECK_FALSE(core::box_sums_fit_32(22, 22, 65535));
+  CHECK(core::box_sums_fit_32(56, 56, 255));
+  int compared = 0, unlocated = 0;
+  for (int p : {5, 10, 21, 24}) {
+    for (int count : {1, 3, 4, 9}) {
+      const int width = count * p, h = p;
+      std::vector<std::uint16_t> raw(static_cast<std::size_t>(width) * h);
+      std::uniform_int_distribution<int> value(0, 65535);
+      for (std::size_t i = 0; i < raw.size(); ++i) raw[i] = static_cast<std::uint16_t>(i % 7 == 0 ? 65535 : value(rng) % 400);
+      const core::ImageView image{std::as_bytes(std::span(raw)), width, h, static_cast<std::size_t>(width) * 2,
+                                  core::PixelFormat::kU16};
+      std::vector<std::uint32_t> s(width + core::kRawColumnSlack), sy(s.size()), syy(s.size()), mx(s.size());
+      const core::RawColumns cols{s.data(), sy.data(), syy.data(), mx.data()};
+      core::raw_column_kernel(core::PixelFormat::kU16, core::SimdLevel::kBaseline)(image, 0, 0, width, h, cols);
+      std::vector<core::FoldedDark> dark(count);
+      std::vector<float> level(count);
+      for (int k = 0; k < count; ++k) {
+        std::vector<float> d(static_cast<std::size_t>(p) * p, 30.0f + 5.0f * k);
+        dark[k] = core::fold_dark(d, p, 0, 0, p, p);
+        level[k] = k % 3 == 2 ? 1e6f : 0.37f * k;  // a level far above the light: flux < 0
+      }
+      const bool fits = core::box_sums_fit_32(p, p, 65535);
+      for (core::SimdLevel simd : levels()) {
+        std::vector<core::WindowMoments> got(count);
+        core::folded_moments_run(cols, count, p, h, dark.data(), level.data(), fits, simd, got.data());
+        for (int k = 0; k < count; ++k) {
+          const core::WindowMoments want = core::folded_moments(cols, k * p, p, h, dark[k], level[k]);
+          INFO("p " << p << " count " << count << " box " << k << " " << core::simd_level_name(simd));
+          REQUIRE(got[k].located == want.located);
+          for (auto [a, b] : {std::pair{got[k].flux, want.flux}, std::pair{got[k].peak, want.peak},
+                              std::pair{got[k].cx, want.cx}, std::pair{got[k].cy, want.cy},
+                              std::pair{got[k].var_x, want.var_x}, std::pair{got[k].var_y, want.var_y},
+                              std::pair{got[k].cov_xy, want.cov_xy}})
+            REQUIRE(std::memcmp(&a, &b, sizeof a) == 0);
+          unlocated += !want.located;
+          ++compared;
+        }
+      }
+    }
+  }
+  CHECK(compared >= 4 * 17);
+  CHECK(unlocated > 0);
 }
