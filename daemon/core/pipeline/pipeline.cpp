@@ -5,7 +5,10 @@
 #include <algorithm>
 #include <cassert>
 #include <cmath>
+#include <cstring>
 #include <limits>
+
+#include <immintrin.h>
 
 #include <fmt/format.h>
 
@@ -127,6 +130,8 @@ Pipeline::Pipeline(PipelineSettings settings, int lanes, std::optional<SimdLevel
       saturated_pixels_(static_cast<std::size_t>(settings_.grid.count())),
       sigmas_(static_cast<std::size_t>(settings_.grid.count())),
       fwhms_(static_cast<std::size_t>(settings_.grid.count())),
+      snrs_(static_cast<std::size_t>(settings_.grid.count())),
+      shapes_(static_cast<std::size_t>(settings_.grid.count())),
       saturation_adu_(static_cast<float>(settings_.saturation_adu.value_or(full_scale_adu(settings_.camera.format)))) {
   assert(validate(settings_).empty());
   assert(lanes >= 1);
@@ -351,6 +356,53 @@ double Pipeline::good_raw_max(const ImageView& image, const Box& box) const {
   return best;
 }
 
+namespace {
+// Four boxes at a time, one per lane, the operations of flux_snr() and
+// spot_shape() in their order (IEEE arithmetic and square roots give each
+// lane the scalar result, bit for bit); selects stand for their branches.
+typedef double D4 __attribute__((vector_size(32)));
+
+// Square roots, two lanes per SSE2 instruction (no AVX needed).
+void sqrt4(const D4& v, D4& out) {
+  __m128d half[2];
+  std::memcpy(half, &v, sizeof half);
+  half[0] = _mm_sqrt_pd(half[0]);
+  half[1] = _mm_sqrt_pd(half[1]);
+  std::memcpy(&out, half, sizeof half);
+}
+
+// flux_snr(flux, sigma, n_pixels, n_ring, subtracted) per lane.
+void flux_snr4(const D4& flux, const D4& sigma, int n_pixels, const D4& n_ring, bool subtracted, D4& out) {
+  const double n = n_pixels;
+  const D4 one = D4{} + 1.0, all_n = D4{} + n;
+  D4 var = n + n * n / n_ring - 2.0 * n;
+  var = var < 1.0 ? one : var;
+  var = subtracted ? (n_ring > 0.0 ? var : all_n) : all_n;
+  D4 root;
+  sqrt4(var, root);
+  out = flux / (sigma * root);
+  out = (flux > 0.0) & (sigma > 0.0) ? out : D4{};
+}
+
+// spot_shape() per lane, for located moments.
+void spot_shape4(const D4& var_x, const D4& var_y, const D4& cov_xy, D4& fwhm_x, D4& fwhm_y, D4& ellipticity) {
+  constexpr double kPixelVariance = 1.0 / 12.0;
+  const D4 zero = {}, ax = var_x - kPixelVariance, ay = var_y - kPixelVariance;
+  const D4 vx = 0.0 < ax ? ax : zero, vy = 0.0 < ay ? ay : zero;
+  D4 root_x, root_y, r, root_ratio;
+  sqrt4(vx, root_x);
+  sqrt4(vy, root_y);
+  fwhm_x = kFwhmPerSigma * root_x;
+  fwhm_y = kFwhmPerSigma * root_y;
+  const D4 mean = 0.5 * (vx + vy);
+  const D4 half_diff = 0.5 * (vx - vy);
+  sqrt4(half_diff * half_diff + cov_xy * cov_xy, r);
+  const D4 major = mean + r, below = mean - r, minor = 0.0 < below ? below : zero;
+  sqrt4(minor / major, root_ratio);
+  ellipticity = major > 0.0 ? 1.0 - root_ratio : zero;
+}
+}  // namespace
+
 void Pipeline::finish(FrameMeasurement& out) {
   assert(out.size() == static_cast<int>(boxes_.size()));
   decide(out);
@@ -382,6 +434,30 @@ void Pipeline::decide(FrameMeasurement& out) {
     frame_sigma = sigmas_[n_sigmas / 2];
   }
 
+  // Each box's significance and shape, four boxes at a time (used below
+  // only where the box's figures are finite).
+  const int n_all = static_cast<int>(boxes_.size());
+  for (int first = 0; first < n_all; first += 4) {
+    D4 flux, sigma, n_ring, var_x, var_y, cov_xy;
+    for (int b = 0; b < 4; ++b) {
+      const int i = std::min(first + b, n_all - 1);
+      const WindowMoments& m = contexts_[i].moments;
+      flux[b] = m.flux;
+      sigma[b] = std::max(borders_[i].sigma_adu, frame_sigma);
+      n_ring[b] = borders_[i].n_kept;
+      var_x[b] = m.var_x;
+      var_y[b] = m.var_y;
+      cov_xy[b] = m.cov_xy;
+    }
+    D4 snr, fwhm_x, fwhm_y, ellipticity;
+    flux_snr4(flux, sigma, n_pixels, n_ring, subtract, snr);
+    spot_shape4(var_x, var_y, cov_xy, fwhm_x, fwhm_y, ellipticity);
+    for (int b = 0; b < 4 && first + b < n_all; ++b) {
+      snrs_[first + b] = snr[b];
+      shapes_[first + b] = SpotShape{fwhm_x[b], fwhm_y[b], ellipticity[b]};
+    }
+  }
+
   double sum_x2 = 0.0, sum_y2 = 0.0, sum_flux = 0.0, total_flux = 0.0;
   int n_valid = 0, n_saturated = 0, n_lit = 0, n_in_map = 0;
   bool any_non_finite = false;
@@ -399,9 +475,8 @@ void Pipeline::decide(FrameMeasurement& out) {
                         std::abs(m.flux) <= kMaxBoxAdu && std::abs(m.peak) <= kMaxBoxAdu &&
                         std::abs(b.level_adu) <= kMaxBoxAdu && std::abs(b.sigma_adu) <= kMaxBoxAdu;
     const bool placed = e.located && std::isfinite(e.x) && std::isfinite(e.y);
-    const double snr =
-        finite ? flux_snr(m.flux, std::max(b.sigma_adu, frame_sigma), n_pixels, b.n_kept, subtract) : 0.0;
-    const SpotShape shape = finite ? spot_shape(m) : SpotShape{};
+    const double snr = finite ? snrs_[i] : 0.0;
+    const SpotShape shape = finite && m.located ? shapes_[i] : SpotShape{};
     const bool own_width = std::isfinite(e.fwhm_x) && std::isfinite(e.fwhm_y);
     const double fwhm_x = own_width ? e.fwhm_x : shape.fwhm_x, fwhm_y = own_width ? e.fwhm_y : shape.fwhm_y;
     const float quality = std::isfinite(e.quality) ? e.quality : 0.0f;

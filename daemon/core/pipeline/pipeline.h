@@ -233,6 +233,8 @@ class Pipeline {
   std::vector<std::uint32_t> saturated_pixels_;  // per box of the grid
   std::vector<float> sigmas_;            // scratch: for the frame's median pixel noise
   std::vector<float> fwhms_;             // scratch: for the frame's median FWHM
+  std::vector<double> snrs_;             // scratch: each box's flux significance (decide)
+  std::vector<SpotShape> shapes_;        // scratch: each box's widths and ellipticity (decide)
   float saturation_adu_;                 // resolved settings_.saturation_adu
 };
 
