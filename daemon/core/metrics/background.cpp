@@ -457,7 +457,12 @@ void border_stats_batch(float* rings, int stride, int count, int n, BackgroundMo
   assert(v != nullptr);
   const auto batch = simd == SimdLevel::kAvx2 ? batch_avx2 : batch_baseline;
   Batch8 result;
-  for (int first = 0; first < count; first += kBatch) {
+  // A batch costs about as much as three rings alone: the last one or two
+  // boxes of a run (and runs of one box, in layouts that are not a grid)
+  // are measured alone.
+  constexpr int kFewestForBatch = 3;
+  int first = 0;
+  for (; count - first >= kFewestForBatch; first += kBatch) {
     // Transposed: v[k][b] = ring value k of box first + b (the last box
     // repeated in lanes past count).
     // 4 x 4 blocks through SSE registers; the rings are readable to a
@@ -491,6 +496,8 @@ void border_stats_batch(float* rings, int stride, int count, int n, BackgroundMo
       }
     }
   }
+  for (; first < count; ++first) out[first] = ring_stats(rings + static_cast<std::size_t>(first) * stride, n,
+                                                         rings + static_cast<std::size_t>(first) * stride + n + 4);
 }
 
 void subtract_constant(float* data, int width, int height, int stride, float value) {

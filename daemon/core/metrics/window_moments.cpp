@@ -208,7 +208,14 @@ void folded_moments_run(const RawColumns& cols, int count, int w, int h, const F
   std::uint32_t peak[kBoxLanes];
   for (int first = 0; first < count; first += kBoxLanes) {
     for (int b = 0; b < kBoxLanes; ++b) {
-      const int k = std::min(first + b, count - 1);  // lanes past count repeat the last box
+      const int k = first + b;
+      if (k >= count) {  // lanes past count repeat the last box (their results are not used)
+        for (D4* v : {&in.r00, &in.r10, &in.r20, &in.r01, &in.r11, &in.r02, &in.d00, &in.d10, &in.d01, &in.d20,
+                      &in.d02, &in.d11, &in.level})
+          (*v)[b] = (*v)[b - 1];
+        peak[b] = peak[b - 1];
+        continue;
+      }
       const BoxSums r = fits_32 ? box_sums_32(cols, k * w, w) : box_sums_wide(cols, k * w, w);
       in.r00[b] = static_cast<double>(r.r00);
       in.r10[b] = static_cast<double>(r.r10);
