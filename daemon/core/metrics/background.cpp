@@ -508,11 +508,10 @@ void subtract_constant(float* data, int width, int height, int stride, float val
 }
 
 double flux_snr(double flux, double sigma_pix, int n_pixels, int n_ring, bool subtracted) {
-  if (!(flux > 0.0) || !(sigma_pix > 0.0)) return 0.0;
-  const double n = n_pixels;
-  double var = n;
-  if (subtracted && n_ring > 0) var = std::max(n + n * n / n_ring - 2.0 * n, 1.0);
-  return flux / (sigma_pix * std::sqrt(var));
+  double snr;
+  flux_snr_of(flux, sigma_pix, n_pixels, static_cast<double>(n_ring), subtracted,
+              [](double v, double& root) { root = std::sqrt(v); }, snr);
+  return snr;
 }
 
 }  // namespace slopecast::core

@@ -111,4 +111,24 @@ void subtract_constant(float* data, int width, int height, int stride, float val
 // n_ring: ring pixels behind the level (BorderStats::n_kept).
 double flux_snr(double flux_adu, double sigma_pix_adu, int n_pixels, int n_ring, bool subtracted);
 
+// The same formula for one box (V = double) or several at once (V a GCC
+// vector of doubles, whose comparisons give lane masks): root(v, out) takes
+// square roots. flux_snr() is this with V = double; the pipeline runs it
+// four boxes at a time, and every lane gets flux_snr()'s value, bit for
+// bit (the same IEEE operations in the same order; selects stand for the
+// branches).
+template <typename V, typename Root>
+inline void flux_snr_of(const V& flux, const V& sigma_pix, int n_pixels, const V& n_ring, bool subtracted, Root root,
+                        V& out) {
+  const double n = n_pixels;
+  const V one = V{} + 1.0, all_n = V{} + n, zero = V{};
+  V var = n + n * n / n_ring - 2.0 * n;
+  var = var < 1.0 ? one : var;
+  var = subtracted ? (n_ring > 0.0 ? var : all_n) : all_n;
+  V r;
+  root(var, r);
+  out = flux / (sigma_pix * r);
+  out = (flux > 0.0) & (sigma_pix > 0.0) ? out : zero;
+}
+
 }  // namespace slopecast::core

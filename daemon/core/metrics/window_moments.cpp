@@ -14,17 +14,8 @@ namespace slopecast::core {
 SpotShape spot_shape(const WindowMoments& m) {
   SpotShape s;
   if (!m.located) return s;
-  constexpr double kPixelVariance = 1.0 / 12.0;
-  const double vx = std::max(0.0, m.var_x - kPixelVariance);
-  const double vy = std::max(0.0, m.var_y - kPixelVariance);
-  s.fwhm_x = kFwhmPerSigma * std::sqrt(vx);
-  s.fwhm_y = kFwhmPerSigma * std::sqrt(vy);
-  // Eigenvalues of [[vx, c], [c, vy]].
-  const double mean = 0.5 * (vx + vy);
-  const double half_diff = 0.5 * (vx - vy);
-  const double r = std::sqrt(half_diff * half_diff + m.cov_xy * m.cov_xy);
-  const double major = mean + r, minor = std::max(0.0, mean - r);
-  s.ellipticity = major > 0.0 ? 1.0 - std::sqrt(minor / major) : 0.0;
+  spot_shape_of(m.var_x, m.var_y, m.cov_xy, [](double v, double& root) { root = std::sqrt(v); }, s.fwhm_x, s.fwhm_y,
+                s.ellipticity);
   return s;
 }
 

@@ -60,6 +60,32 @@ inline constexpr double kFwhmPerSigma = 2.3548200450309493;  // 2 sqrt(2 ln 2)
 // negative results clamped to 0); all 0 when !m.located.
 SpotShape spot_shape(const WindowMoments& m);
 
+// spot_shape()'s formula from the central moments, for one window (V =
+// double) or several at once (V a GCC vector of doubles, whose comparisons
+// give lane masks): root(v, out) takes square roots. spot_shape() is this
+// with V = double; the pipeline runs it four boxes at a time, and every
+// lane gets spot_shape()'s figures, bit for bit (the same IEEE operations in
+// the same order; selects stand for the branches).
+template <typename V, typename Root>
+inline void spot_shape_of(const V& var_x, const V& var_y, const V& cov_xy, Root root, V& fwhm_x, V& fwhm_y,
+                          V& ellipticity) {
+  constexpr double kPixelVariance = 1.0 / 12.0;
+  const V zero = V{}, ax = var_x - kPixelVariance, ay = var_y - kPixelVariance;
+  const V vx = 0.0 < ax ? ax : zero, vy = 0.0 < ay ? ay : zero;
+  V root_x, root_y, r, root_ratio;
+  root(vx, root_x);
+  root(vy, root_y);
+  fwhm_x = kFwhmPerSigma * root_x;
+  fwhm_y = kFwhmPerSigma * root_y;
+  // Eigenvalues of [[vx, c], [c, vy]].
+  const V mean = 0.5 * (vx + vy);
+  const V half_diff = 0.5 * (vx - vy);
+  root(half_diff * half_diff + cov_xy * cov_xy, r);
+  const V major = mean + r, below = mean - r, minor = 0.0 < below ? below : zero;
+  root(minor / major, root_ratio);
+  ellipticity = major > 0.0 ? 1.0 - root_ratio : zero;
+}
+
 // The folded path (u8/u16 frames): the moments of (raw - dark - level)
 // come from raw integer column sums (frame/raw_columns.h) minus constants,
 // because every moment is linear in the pixels:

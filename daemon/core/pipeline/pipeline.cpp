@@ -357,9 +357,8 @@ double Pipeline::good_raw_max(const ImageView& image, const Box& box) const {
 }
 
 namespace {
-// Four boxes at a time, one per lane, the operations of flux_snr() and
-// spot_shape() in their order (IEEE arithmetic and square roots give each
-// lane the scalar result, bit for bit); selects stand for their branches.
+// Four boxes per vector for flux_snr_of() and spot_shape_of() (their
+// headers say why each lane is bit for bit the scalar result).
 typedef double D4 __attribute__((vector_size(32)));
 
 // Square roots, two lanes per SSE2 instruction (no AVX needed).
@@ -371,36 +370,6 @@ void sqrt4(const D4& v, D4& out) {
   std::memcpy(&out, half, sizeof half);
 }
 
-// flux_snr(flux, sigma, n_pixels, n_ring, subtracted) per lane.
-void flux_snr4(const D4& flux, const D4& sigma, int n_pixels, const D4& n_ring, bool subtracted, D4& out) {
-  const double n = n_pixels;
-  const D4 one = D4{} + 1.0, all_n = D4{} + n;
-  D4 var = n + n * n / n_ring - 2.0 * n;
-  var = var < 1.0 ? one : var;
-  var = subtracted ? (n_ring > 0.0 ? var : all_n) : all_n;
-  D4 root;
-  sqrt4(var, root);
-  out = flux / (sigma * root);
-  out = (flux > 0.0) & (sigma > 0.0) ? out : D4{};
-}
-
-// spot_shape() per lane, for located moments.
-void spot_shape4(const D4& var_x, const D4& var_y, const D4& cov_xy, D4& fwhm_x, D4& fwhm_y, D4& ellipticity) {
-  constexpr double kPixelVariance = 1.0 / 12.0;
-  const D4 zero = {}, ax = var_x - kPixelVariance, ay = var_y - kPixelVariance;
-  const D4 vx = 0.0 < ax ? ax : zero, vy = 0.0 < ay ? ay : zero;
-  D4 root_x, root_y, r, root_ratio;
-  sqrt4(vx, root_x);
-  sqrt4(vy, root_y);
-  fwhm_x = kFwhmPerSigma * root_x;
-  fwhm_y = kFwhmPerSigma * root_y;
-  const D4 mean = 0.5 * (vx + vy);
-  const D4 half_diff = 0.5 * (vx - vy);
-  sqrt4(half_diff * half_diff + cov_xy * cov_xy, r);
-  const D4 major = mean + r, below = mean - r, minor = 0.0 < below ? below : zero;
-  sqrt4(minor / major, root_ratio);
-  ellipticity = major > 0.0 ? 1.0 - root_ratio : zero;
-}
 }  // namespace
 
 void Pipeline::finish(FrameMeasurement& out) {
@@ -450,8 +419,8 @@ void Pipeline::decide(FrameMeasurement& out) {
       cov_xy[b] = m.cov_xy;
     }
     D4 snr, fwhm_x, fwhm_y, ellipticity;
-    flux_snr4(flux, sigma, n_pixels, n_ring, subtract, snr);
-    spot_shape4(var_x, var_y, cov_xy, fwhm_x, fwhm_y, ellipticity);
+    flux_snr_of(flux, sigma, n_pixels, n_ring, subtract, sqrt4, snr);
+    spot_shape_of(var_x, var_y, cov_xy, sqrt4, fwhm_x, fwhm_y, ellipticity);
     for (int b = 0; b < 4 && first + b < n_all; ++b) {
       snrs_[first + b] = snr[b];
       shapes_[first + b] = SpotShape{fwhm_x[b], fwhm_y[b], ellipticity[b]};

@@ -229,3 +229,57 @@ TEST_CASE("a clean spot is valid for every method", "[metrics][faults]") {
     CHECK(m.total_flux_adu == Approx(2e4).epsilon(2e-3));
   }
 }
+
+TEST_CASE("spot shape: FWHM from the central moments, ellipticity from their eigenvalues, the same on vector lanes",
+          "[metrics][simd]") {
+  // A Gaussian of rms s sampled on pixels has central moment s^2 + 1/12
+  // (the pixel's own variance, removed by spot_shape); FWHM = 2 sqrt(2 ln 2) s
+  // (the Gaussian's definition). Ellipticity 1 - sqrt(minor/major) of the
+  // covariance's eigenvalues: diag(1, 4) and [[2.5, 1.5], [1.5, 2.5]]
+  // (eigenvalues 4 and 1) both give 0.5.
+  const double pix = 1.0 / 12.0;
+  core::WindowMoments m;
+  m.located = true;
+  m.var_x = 1.0 + pix;
+  m.var_y = 4.0 + pix;
+  auto s = core::spot_shape(m);
+  CHECK(s.fwhm_x == Approx(2.3548200450309493).epsilon(1e-12));
+  CHECK(s.fwhm_y == Approx(2 * 2.3548200450309493).epsilon(1e-12));
+  CHECK(s.ellipticity == Approx(0.5).epsilon(1e-12));
+  m.var_x = m.var_y = 2.5 + pix;
+  m.cov_xy = 1.5;
+  CHECK(core::spot_shape(m).ellipticity == Approx(0.5).epsilon(1e-12));
+  m.located = false;
+  CHECK(core::spot_shape(m).fwhm_x == 0.0);
+
+  // The pipeline evaluates the same formula four windows per vector: each
+  // lane must be the scalar value, bit for bit, including the clamps
+  // (variance below 1/12) and a zero major axis.
+  typedef double D4 __attribute__((vector_size(32)));
+  const auto lane_root = [](const D4& v, D4& out) {
+    for (int k = 0; k < 4; ++k) out[k] = std::sqrt(v[k]);
+  };
+  const double cases[][3] = {{1.2, 0.7, 0.1}, {0.05, 0.02, 0.0}, {pix, pix, 0.0}, {3.0, 3.0, -2.9},
+                             {0.5, 9.0, 1.0}, {1e-9, 2.0, 0.0}, {7.0, 7.0, 0.0}, {0.0, 0.0, 0.0}};
+  for (int first = 0; first < 8; first += 4) {
+    D4 vx, vy, c, fx, fy, e;
+    for (int k = 0; k < 4; ++k) {
+      vx[k] = cases[first + k][0];
+      vy[k] = cases[first + k][1];
+      c[k] = cases[first + k][2];
+    }
+    core::spot_shape_of(vx, vy, c, lane_root, fx, fy, e);
+    for (int k = 0; k < 4; ++k) {
+      core::WindowMoments one;
+      one.located = true;
+      one.var_x = vx[k];
+      one.var_y = vy[k];
+      one.cov_xy = c[k];
+      const auto want = core::spot_shape(one);
+      INFO("case " << first + k);
+      CHECK(std::memcmp(&fx[k], &want.fwhm_x, sizeof(double)) == 0);
+      CHECK(std::memcmp(&fy[k], &want.fwhm_y, sizeof(double)) == 0);
+      CHECK(std::memcmp(&e[k], &want.ellipticity, sizeof(double)) == 0);
+    }
+  }
+}
