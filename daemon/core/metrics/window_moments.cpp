@@ -114,75 +114,102 @@ bool box_sums_fit_32(int w, int h, std::uint32_t max_pixel) {
   return largest < 4294967296.0;
 }
 
+namespace {
+// The moments' arithmetic, once, for one box (V = double) or four at a time
+// (V = D4, one box per lane): each lane gets the scalar result bit for bit
+// (the same IEEE operations in the same order; neither build has FMA to
+// contract them).
+template <typename V>
+struct Six {
+  V s00, s10, s01, s20, s02, s11;  // sums of w, for w in 1, x, y, x^2, y^2, x y
+};
+
+// raw - dark - level: the level's sums are the box geometry's.
+template <typename V>
+[[gnu::always_inline]] inline void less_dark_and_level(const Six<V>& raw, const Six<V>& dark, const V& level, int w, int h,
+                                                       Six<V>& m) {
+  const double sx = 0.5 * w * (w - 1.0), sy = 0.5 * h * (h - 1.0);
+  const double sxx = (w - 1.0) * w * (2.0 * w - 1.0) / 6.0, syy = (h - 1.0) * h * (2.0 * h - 1.0) / 6.0;
+  const double wd = w, hd = h;
+  m.s00 = raw.s00 - dark.s00 - level * wd * hd;
+  m.s10 = raw.s10 - dark.s10 - level * hd * sx;
+  m.s01 = raw.s01 - dark.s01 - level * wd * sy;
+  m.s20 = raw.s20 - dark.s20 - level * hd * sxx;
+  m.s02 = raw.s02 - dark.s02 - level * wd * syy;
+  m.s11 = raw.s11 - dark.s11 - level * sx * sy;
+}
+
+// Centre and central second moments (meaningful where s00 > 0).
+template <typename V>
+[[gnu::always_inline]] inline void centre_of(const Six<V>& m, V& cx, V& cy, V& var_x, V& var_y, V& cov_xy) {
+  cx = m.s10 / m.s00;
+  cy = m.s01 / m.s00;
+  var_x = m.s20 / m.s00 - cx * cx;
+  var_y = m.s02 / m.s00 - cy * cy;
+  cov_xy = m.s11 / m.s00 - cx * cy;
+}
+
+Six<double> six(const FoldedDark& d) { return {d.d00, d.d10, d.d01, d.d20, d.d02, d.d11}; }
+Six<double> six(const BoxSums& r) {
+  return {static_cast<double>(r.r00), static_cast<double>(r.r10), static_cast<double>(r.r01),
+          static_cast<double>(r.r20), static_cast<double>(r.r02), static_cast<double>(r.r11)};
+}
+
+// The published moments from the sums and the centre, as in the header.
+WindowMoments finish_moments(double flux, double peak, double cx, double cy, double var_x, double var_y,
+                             double cov_xy) {
+  WindowMoments m;
+  m.flux = flux;
+  m.peak = peak;
+  if (!(flux > 0.0)) return m;
+  m.cx = cx;
+  m.cy = cy;
+  m.var_x = var_x;
+  m.var_y = var_y;
+  m.cov_xy = cov_xy;
+  m.located = std::isfinite(cx) && std::isfinite(cy) && std::isfinite(var_x) && std::isfinite(var_y);
+  if (!m.located) m.cx = m.cy = m.var_x = m.var_y = m.cov_xy = 0.0;
+  return m;
+}
+}  // namespace
+
 WindowMoments folded_moments(const RawColumns& cols, int x0, int w, int h, const FoldedDark& dark, double level,
                              std::span<const PixelPatch> patches, bool fits_32) {
   // Integer sums over the window's columns (exact: each term < 2^32, at
   // most a few hundred of them), in 32-bit lanes where they fit.
   const BoxSums r = fits_32 ? box_sums_32(cols, x0, w) : box_sums_wide(cols, x0, w);
-  const std::int64_t r00 = r.r00, r10 = r.r10, r20 = r.r20, r01 = r.r01, r11 = r.r11, r02 = r.r02;
-  const std::uint32_t peak = r.peak;
-  // The level's sums over the box geometry.
-  const double sx = 0.5 * w * (w - 1.0), sy = 0.5 * h * (h - 1.0);
-  const double sxx = (w - 1.0) * w * (2.0 * w - 1.0) / 6.0, syy = (h - 1.0) * h * (2.0 * h - 1.0) / 6.0;
-  double m00 = static_cast<double>(r00) - dark.d00 - level * w * h;
-  double m10 = static_cast<double>(r10) - dark.d10 - level * h * sx;
-  double m01 = static_cast<double>(r01) - dark.d01 - level * w * sy;
-  double m20 = static_cast<double>(r20) - dark.d20 - level * h * sxx;
-  double m02 = static_cast<double>(r02) - dark.d02 - level * w * syy;
-  double m11 = static_cast<double>(r11) - dark.d11 - level * sx * sy;
+  Six<double> m;
+  less_dark_and_level(six(r), six(dark), level, w, h, m);
   for (const PixelPatch& q : patches) {
-    m00 += q.delta;
-    m10 += q.x * q.delta;
-    m01 += q.y * q.delta;
-    m20 += static_cast<double>(q.x) * q.x * q.delta;
-    m02 += static_cast<double>(q.y) * q.y * q.delta;
-    m11 += static_cast<double>(q.x) * q.y * q.delta;
+    m.s00 += q.delta;
+    m.s10 += q.x * q.delta;
+    m.s01 += q.y * q.delta;
+    m.s20 += static_cast<double>(q.x) * q.x * q.delta;
+    m.s02 += static_cast<double>(q.y) * q.y * q.delta;
+    m.s11 += static_cast<double>(q.x) * q.y * q.delta;
   }
-  WindowMoments m;
-  m.flux = m00;
-  m.peak = peak;
-  if (!(m00 > 0.0)) return m;
-  const double cx = m10 / m00, cy = m01 / m00;
-  m.cx = cx;
-  m.cy = cy;
-  m.var_x = m20 / m00 - cx * cx;
-  m.var_y = m02 / m00 - cy * cy;
-  m.cov_xy = m11 / m00 - cx * cy;
-  m.located = std::isfinite(cx) && std::isfinite(cy) && std::isfinite(m.var_x) && std::isfinite(m.var_y);
-  if (!m.located) m.cx = m.cy = m.var_x = m.var_y = m.cov_xy = 0.0;
-  return m;
+  double cx, cy, var_x, var_y, cov_xy;
+  centre_of(m, cx, cy, var_x, var_y, cov_xy);
+  return finish_moments(m.s00, r.peak, cx, cy, var_x, var_y, cov_xy);
 }
 
 namespace {
-// Four boxes' moments from their sums, one box per lane: the operations of
-// folded_moments(), in its order, on each lane (IEEE arithmetic gives
-// each lane the scalar result; neither build has FMA to contract with).
 constexpr int kBoxLanes = 4;
 typedef double D4 __attribute__((vector_size(kBoxLanes * 8)));
 
 struct BoxLanes {
-  D4 r00, r10, r20, r01, r11, r02, d00, d10, d01, d20, d02, d11, level;
+  Six<D4> raw, dark;
+  D4 level;
 };
 struct MomentLanes {
   D4 m00, cx, cy, var_x, var_y, cov_xy;
 };
 
 [[gnu::always_inline]] inline void moments_x4(const BoxLanes& in, int w, int h, MomentLanes& out) {
-  const double sx = 0.5 * w * (w - 1.0), sy = 0.5 * h * (h - 1.0);
-  const double sxx = (w - 1.0) * w * (2.0 * w - 1.0) / 6.0, syy = (h - 1.0) * h * (2.0 * h - 1.0) / 6.0;
-  const double wd = w, hd = h;
-  const D4 m00 = in.r00 - in.d00 - in.level * wd * hd;
-  const D4 m10 = in.r10 - in.d10 - in.level * hd * sx;
-  const D4 m01 = in.r01 - in.d01 - in.level * wd * sy;
-  const D4 m20 = in.r20 - in.d20 - in.level * hd * sxx;
-  const D4 m02 = in.r02 - in.d02 - in.level * wd * syy;
-  const D4 m11 = in.r11 - in.d11 - in.level * sx * sy;
-  out.m00 = m00;
-  out.cx = m10 / m00;
-  out.cy = m01 / m00;
-  out.var_x = m20 / m00 - out.cx * out.cx;
-  out.var_y = m02 / m00 - out.cy * out.cy;
-  out.cov_xy = m11 / m00 - out.cx * out.cy;
+  Six<D4> m;
+  less_dark_and_level(in.raw, in.dark, in.level, w, h, m);
+  out.m00 = m.s00;
+  centre_of(m, out.cx, out.cy, out.var_x, out.var_y, out.cov_xy);
 }
 
 void moments_x4_baseline(const BoxLanes& in, int w, int h, MomentLanes& out) { moments_x4(in, w, h, out); }
@@ -196,48 +223,35 @@ void folded_moments_run(const RawColumns& cols, int count, int w, int h, const F
   const auto kernel = simd == SimdLevel::kAvx2 ? moments_x4_avx2 : moments_x4_baseline;
   BoxLanes in;
   MomentLanes m;
+  Six<double> raw, dark_sums;
   std::uint32_t peak[kBoxLanes];
+  const auto put = [](Six<D4>& lanes, int b, const Six<double>& v) {
+    lanes.s00[b] = v.s00;
+    lanes.s10[b] = v.s10;
+    lanes.s01[b] = v.s01;
+    lanes.s20[b] = v.s20;
+    lanes.s02[b] = v.s02;
+    lanes.s11[b] = v.s11;
+  };
   for (int first = 0; first < count; first += kBoxLanes) {
     for (int b = 0; b < kBoxLanes; ++b) {
       const int k = first + b;
-      if (k >= count) {  // lanes past count repeat the last box (their results are not used)
-        for (D4* v : {&in.r00, &in.r10, &in.r20, &in.r01, &in.r11, &in.r02, &in.d00, &in.d10, &in.d01, &in.d20,
-                      &in.d02, &in.d11, &in.level})
-          (*v)[b] = (*v)[b - 1];
+      if (k < count) {  // lanes past count repeat the last box (their results are not used)
+        const BoxSums r = fits_32 ? box_sums_32(cols, k * w, w) : box_sums_wide(cols, k * w, w);
+        raw = six(r);
+        dark_sums = six(dark[k]);
+        peak[b] = r.peak;
+        in.level[b] = level[k];
+      } else {
         peak[b] = peak[b - 1];
-        continue;
+        in.level[b] = in.level[b - 1];
       }
-      const BoxSums r = fits_32 ? box_sums_32(cols, k * w, w) : box_sums_wide(cols, k * w, w);
-      in.r00[b] = static_cast<double>(r.r00);
-      in.r10[b] = static_cast<double>(r.r10);
-      in.r20[b] = static_cast<double>(r.r20);
-      in.r01[b] = static_cast<double>(r.r01);
-      in.r11[b] = static_cast<double>(r.r11);
-      in.r02[b] = static_cast<double>(r.r02);
-      in.d00[b] = dark[k].d00;
-      in.d10[b] = dark[k].d10;
-      in.d01[b] = dark[k].d01;
-      in.d20[b] = dark[k].d20;
-      in.d02[b] = dark[k].d02;
-      in.d11[b] = dark[k].d11;
-      in.level[b] = level[k];
-      peak[b] = r.peak;
+      put(in.raw, b, raw);
+      put(in.dark, b, dark_sums);
     }
     kernel(in, w, h, m);
-    for (int b = 0; b < kBoxLanes && first + b < count; ++b) {
-      WindowMoments& o = out[first + b];
-      o = WindowMoments{};
-      o.flux = m.m00[b];
-      o.peak = peak[b];
-      if (!(m.m00[b] > 0.0)) continue;
-      o.cx = m.cx[b];
-      o.cy = m.cy[b];
-      o.var_x = m.var_x[b];
-      o.var_y = m.var_y[b];
-      o.cov_xy = m.cov_xy[b];
-      o.located = std::isfinite(o.cx) && std::isfinite(o.cy) && std::isfinite(o.var_x) && std::isfinite(o.var_y);
-      if (!o.located) o.cx = o.cy = o.var_x = o.var_y = o.cov_xy = 0.0;
-    }
+    for (int b = 0; b < kBoxLanes && first + b < count; ++b)
+      out[first + b] = finish_moments(m.m00[b], peak[b], m.cx[b], m.cy[b], m.var_x[b], m.var_y[b], m.cov_xy[b]);
   }
 }
 
