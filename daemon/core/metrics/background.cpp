@@ -69,14 +69,141 @@ int border_pixel_count(int width, int height) {
 
 namespace {
 
-// 4 float lanes, one SSE register on the x86-64-v2 baseline: the ring's
-// loops are reductions, which the compiler may not reorder on its own, so
-// the lanes are written out (value k in lane k % 4), with selects as bit
-// masks; the lane sums are added in double at the end. The ring is padded
-// in place to a multiple of 4, each pass with a value that leaves its
-// result unchanged: 0 for the sums, the mean for the squares (whose
-// deviation is then 0) and the extremes (the mean lies between them), NaN
-// for the counts (a NaN compares false). No lane masks, no copy.
+// The clean-ring test and its answer, for one ring (V = float) or eight at
+// once (V = F8, one ring per vector lane). Accumulator j sums the ring
+// positions k = j (mod 4), in increasing k, and the four are added in
+// double in the order 0, 1, 2, 3: the same operations on every lane, so
+// eight rings measured together get, bit for bit, what each gets alone.
+constexpr int kBatch = 8;
+typedef float F8 __attribute__((vector_size(kBatch * 4)));
+typedef int I8 __attribute__((vector_size(kBatch * 4)));
+typedef double D8 __attribute__((vector_size(kBatch * 8)));
+
+template <typename V> struct RingLanes;
+template <> struct RingLanes<float> {
+  using I = int;
+  using D = double;
+  static constexpr int kCount = 1;
+};
+template <> struct RingLanes<F8> {
+  using I = I8;
+  using D = D8;
+  static constexpr int kCount = kBatch;
+};
+
+template <typename T>
+auto lane(const T& v, int b) {
+  if constexpr (std::is_arithmetic_v<T>) return v;
+  else return v[b];
+}
+template <typename T, typename X>
+void set_lane(T& v, int b, X x) {
+  if constexpr (std::is_arithmetic_v<T>) v = x;
+  else v[b] = x;
+}
+// to = from, lane by lane, converted as static_cast converts one value.
+template <typename To, typename From>
+void convert(const From& from, To& to) {
+  if constexpr (std::is_arithmetic_v<From>) to = static_cast<To>(from);
+  else to = __builtin_convertvector(from, To);
+}
+
+struct CleanRing {
+  bool finite = false;  // no NaN or infinity in the ring
+  bool clean = false;   // the short cut holds: level and sigma below are the answer
+  float level = 0.0f, sigma = 0.0f;
+};
+
+// load(k): a reference to ring value k (of each ring), k < n. out: one
+// per lane.
+template <typename V, typename Load>
+[[gnu::always_inline]] inline void clean_ring(Load load, int n, CleanRing* out) {
+  using I = typename RingLanes<V>::I;
+  using D = typename RingLanes<V>::D;
+  const auto sum4 = [](const V& a0, const V& a1, const V& a2, const V& a3, D& total) {
+    D t0, t1, t2, t3;
+    convert(a0, t0);
+    convert(a1, t1);
+    convert(a2, t2);
+    convert(a3, t3);
+    total = t0 + t1 + t2 + t3;
+  };
+  // Visits k = 0 .. n-1 as f(accumulator k mod 4, k), four at a time (so
+  // that the accumulators stay in registers).
+  const auto by_four = [n](auto f) {
+    int k = 0;
+    for (; k + 4 <= n; k += 4) {
+      f(0, k);
+      f(1, k + 1);
+      f(2, k + 2);
+      f(3, k + 3);
+    }
+    for (int j = 0; k < n; ++k, ++j) f(j, k);
+  };
+  // One pass: v * 0 is 0 for a finite v and NaN for a NaN or infinity.
+  V s0 = {}, s1 = {}, s2 = {}, s3 = {}, z0 = {}, z1 = {}, z2 = {}, z3 = {};
+  by_four([&](int j, int k) {
+    const V& v = load(k);
+    V& sj = j == 0 ? s0 : j == 1 ? s1 : j == 2 ? s2 : s3;
+    V& zj = j == 0 ? z0 : j == 1 ? z1 : j == 2 ? z2 : z3;
+    sj += v;
+    zj += v * 0.0f;
+  });
+  D zero, mean;
+  sum4(z0, z1, z2, z3, zero);
+  sum4(s0, s1, s2, s3, mean);
+  mean /= static_cast<double>(n);
+  // A clean ring needs no median. If every value lies within c of the
+  // median, where c = 3.5 max(rms about the mean m, 1/sqrt 12) is a lower
+  // bound of the clip the second round of the full procedure would use (the
+  // rms about the median is at least the rms about the mean), that round
+  // keeps them all and the answer is m and the sample rms. Every value is
+  // within c of the median exactly when the median lies in
+  // [max - c, min + c], which counting decides without sorting: the lower
+  // middle value is >= max - c when fewer than n/2 values lie below it, and
+  // the upper middle value is <= min + c when fewer than n - n/2 values lie
+  // above it. Derived; checked against the full procedure in
+  // background_test. Rings with a hot pixel or a spot tail fail the test.
+  V mf;
+  convert(mean, mf);
+  V q0 = {}, q1 = {}, q2 = {}, q3 = {}, lo = load(0), hi = load(0);
+  by_four([&](int j, int k) {
+    const V& v = load(k);
+    V& qj = j == 0 ? q0 : j == 1 ? q1 : j == 2 ? q2 : q3;
+    const V d = v - mf;
+    qj += d * d;
+    lo = v < lo ? v : lo;
+    hi = v > hi ? v : hi;
+  });
+  D sum_sq;
+  sum4(q0, q1, q2, q3, sum_sq);
+  V low = {}, high = {};
+  for (int b = 0; b < RingLanes<V>::kCount; ++b) {
+    const double c = 3.5 * std::max(std::sqrt(lane(sum_sq, b) / n), static_cast<double>(kRoundingSigma));
+    set_lane(low, b, static_cast<float>(lane(hi, b) - c));
+    set_lane(high, b, static_cast<float>(lane(lo, b) + c));
+  }
+  const I one = I{} + 1, none = I{};
+  I below = {}, above = {};
+  for (int k = 0; k < n; ++k) {
+    const V v = load(k);
+    below += v < low ? one : none;
+    above += v > high ? one : none;
+  }
+  const int mid = n / 2;
+  for (int b = 0; b < RingLanes<V>::kCount; ++b) {
+    CleanRing& r = out[b];
+    r.finite = lane(zero, b) == 0.0;
+    r.clean = r.finite && lane(below, b) <= mid - 1 && lane(above, b) <= n - mid - 1;
+    r.level = lane(mf, b);
+    const double ss = lane(sum_sq, b);
+    r.sigma = std::max(static_cast<float>(n > 1 ? std::sqrt(ss / (n - 1)) : 0.0), kRoundingSigma);
+  }
+}
+
+// 4 float lanes, one SSE register on the x86-64-v2 baseline, for the full
+// procedure's rounds: reductions, which the compiler may not reorder on its
+// own, so the lanes are written out, with selects as bit masks.
 typedef float F4 __attribute__((vector_size(16)));
 typedef int I4 __attribute__((vector_size(16)));
 
@@ -90,72 +217,11 @@ F4 select(I4 mask, F4 v) { return reinterpret_cast<F4>(mask & reinterpret_cast<I
 F4 absolute(F4 v) { return reinterpret_cast<F4>(reinterpret_cast<I4>(v) & 0x7fffffff); }
 int lane_total(I4 v) { return v[0] + v[1] + v[2] + v[3]; }
 
-void pad(float* ring, int n, int padded, float value) {
-  for (int k = n; k < padded; ++k) ring[k] = value;
-}
-
-// Level and noise of n ring values (ring order), as in the header. ring
-// holds n values and room for padded_size(n); it and work (n + 4 floats)
-// are overwritten.
-int padded_size(int n) { return (n + 3) / 4 * 4; }
-
-BorderStats ring_stats(float* ring, int n, float* work) {
+// The full procedure for a finite ring that is not clean. work holds n + 4
+// floats and is overwritten.
+BorderStats clipped_ring_stats(const float* ring, int n, float* work) {
   BorderStats b;
   b.n_border = n;
-  const int padded = padded_size(n);
-  pad(ring, n, padded, 0.0f);
-  // One pass: v * 0 is 0 for a finite v and NaN for a NaN or infinity.
-  F4 zero = {}, sum = {};
-  for (int k = 0; k < padded; k += 4) {
-    const F4 v = load4(ring + k);
-    zero += v * 0.0f;
-    sum += v;
-  }
-  if (!(lane_sum(zero) == 0.0)) {
-    b.finite = false;  // nth_element needs a strict weak order: no NaN
-    return b;
-  }
-  // A clean ring needs no median. If every value lies within c of the
-  // median, where c = 3.5 max(rms about the mean m, 1/sqrt 12) is a lower
-  // bound of the clip the second round below would use (the rms about the
-  // median is at least the rms about the mean), that round keeps them all
-  // and the answer is m and the sample rms. Every value is within c of the
-  // median exactly when the median lies in [max - c, min + c], which
-  // counting decides without sorting: the lower middle value is >= max - c
-  // when fewer than n/2 values lie below it, and the upper middle value is
-  // <= min + c when fewer than n - n/2 values lie above it. Derived; checked
-  // against the full procedure in background_test. Rings with a hot pixel
-  // or a spot tail fail the test and take the full procedure.
-  const double mean = lane_sum(sum) / n;
-  const float mf = static_cast<float>(mean);
-  pad(ring, n, padded, mf);
-  F4 ss = {}, lo = ring[0] + F4{}, hi = ring[0] + F4{};
-  for (int k = 0; k < padded; k += 4) {
-    const F4 v = load4(ring + k);
-    const F4 d = v - mf;
-    ss += d * d;
-    lo = v < lo ? v : lo;
-    hi = v > hi ? v : hi;
-  }
-  const double sum_sq = lane_sum(ss);
-  const float vmin = std::min(std::min(lo[0], lo[1]), std::min(lo[2], lo[3]));
-  const float vmax = std::max(std::max(hi[0], hi[1]), std::max(hi[2], hi[3]));
-  const double c = 3.5 * std::max(std::sqrt(sum_sq / n), static_cast<double>(kRoundingSigma));
-  const float low_bound = static_cast<float>(vmax - c), high_bound = static_cast<float>(vmin + c);
-  pad(ring, n, padded, std::numeric_limits<float>::quiet_NaN());
-  I4 below = {}, above = {};
-  for (int k = 0; k < padded; k += 4) {
-    const F4 v = load4(ring + k);
-    below -= v < low_bound;
-    above -= v > high_bound;
-  }
-  const int mid = n / 2;
-  if (lane_total(below) <= mid - 1 && lane_total(above) <= n - mid - 1) {
-    b.level_adu = mf;
-    b.n_kept = n;
-    b.sigma_adu = std::max(static_cast<float>(n > 1 ? std::sqrt(sum_sq / (n - 1)) : 0.0), kRoundingSigma);
-    return b;
-  }
   std::copy(ring, ring + n, work);
   const float median = median_of(work, n);
   // The median anchors the ring; rounds of 3.5-sigma clipping about it (until
@@ -166,8 +232,9 @@ BorderStats ring_stats(float* ring, int n, float* work) {
   // 1 ADU step moves a 225-pixel box's flux by 225 ADU, which gave empty
   // boxes a lumpy, long-tailed flux (measured: a significance of 6.3 among
   // 51 200 empty boxes). A second selection for the MAD cost 0.6 us per box.
+  const int padded = (n + 3) / 4 * 4;
   for (int k = 0; k < n; ++k) work[k] = ring[k] - median;
-  pad(work, n, padded, HUGE_VALF);  // never kept
+  for (int k = n; k < padded; ++k) work[k] = HUGE_VALF;  // never kept
   double clip = HUGE_VAL, mean_d = 0.0, var = 0.0;
   int kept = 0;
   for (int round = 0; round < 8; ++round) {  // until no pixel changes side; 8 at most
@@ -196,6 +263,30 @@ BorderStats ring_stats(float* ring, int n, float* work) {
   b.n_kept = kept;
   b.sigma_adu = std::max(static_cast<float>(std::sqrt(var)), kRoundingSigma);
   return b;
+}
+
+// The answer for one ring from its clean-ring test: the short cut's, not
+// finite, or the full procedure's.
+BorderStats ring_answer(const CleanRing& c, const float* ring, int n, float* work) {
+  BorderStats b;
+  b.n_border = n;
+  if (!c.finite) {
+    b.finite = false;  // nth_element needs a strict weak order: no NaN
+    return b;
+  }
+  if (!c.clean) return clipped_ring_stats(ring, n, work);
+  b.level_adu = c.level;
+  b.n_kept = n;
+  b.sigma_adu = c.sigma;
+  return b;
+}
+
+// Level and noise of n ring values (ring order), as in the header. work
+// holds n + 4 floats and is overwritten.
+BorderStats ring_stats(const float* ring, int n, float* work) {
+  CleanRing c;
+  clean_ring<float>([ring](int k) -> const float& { return ring[k]; }, n, &c);
+  return ring_answer(c, ring, n, work);
 }
 
 // The median estimator: level = median, sigma = 1.4826 MAD.
@@ -348,97 +439,17 @@ BorderStats border_stats_raw(const ImageView& image, std::span<const float> ring
 
 namespace {
 
-// Eight rings at a time, one box per lane: every sum runs over the same
-// values in the same order as ring_stats() (its lane j, ring positions
-// k = j mod 4, becomes accumulator j here), so each box's figures are
-// bit-identical to ring_stats()'s; the padding ring_stats() adds changes
-// none of its sums (see there) and is not needed. Boxes that fail the
-// clean-ring test go to ring_stats() one by one. Built twice, for the
-// baseline and for AVX2 (no FMA in either, so no contraction changes a
-// rounding); tests compare both with ring_stats().
-constexpr int kBatch = 8;
-typedef float F8 __attribute__((vector_size(kBatch * 4)));
-typedef int I8 __attribute__((vector_size(kBatch * 4)));
-typedef double D8 __attribute__((vector_size(kBatch * 8)));
-
-[[gnu::always_inline]] inline void lane_sum8(const F8& a0, const F8& a1, const F8& a2, const F8& a3, D8& out) {
-  out = __builtin_convertvector(a0, D8) + __builtin_convertvector(a1, D8) + __builtin_convertvector(a2, D8) +
-        __builtin_convertvector(a3, D8);
+// Eight rings at a time, one box per lane, with clean_ring<F8>: each box's
+// figures are bit for bit those of ring_stats() (see clean_ring). Built
+// twice, for the baseline and for AVX2 (no FMA in either, so no
+// contraction changes a rounding); tests compare both with ring_stats().
+// soa[k] holds ring value k of the eight boxes.
+void batch_baseline(const F8* soa, int n, CleanRing* out) {
+  clean_ring<F8>([soa](int k) -> const F8& { return soa[k]; }, n, out);
 }
-
-// soa[k] holds ring value k of the eight boxes. For each lane: finite,
-// and when the ring is clean (fast test of ring_stats) its stats in out
-// with clean set.
-struct Batch8 {
-  bool finite[kBatch], clean[kBatch];
-  BorderStats stats[kBatch];
-};
-
-[[gnu::always_inline]] inline void batch_stats(const F8* soa, int n, Batch8& out) {
-  F8 s0 = {}, s1 = {}, s2 = {}, s3 = {}, z0 = {}, z1 = {}, z2 = {}, z3 = {};
-  int k = 0;
-  for (; k + 4 <= n; k += 4) {
-    s0 += soa[k];
-    z0 += soa[k] * 0.0f;
-    s1 += soa[k + 1];
-    z1 += soa[k + 1] * 0.0f;
-    s2 += soa[k + 2];
-    z2 += soa[k + 2] * 0.0f;
-    s3 += soa[k + 3];
-    z3 += soa[k + 3] * 0.0f;
-  }
-  if (k < n) s0 += soa[k], z0 += soa[k] * 0.0f;
-  if (k + 1 < n) s1 += soa[k + 1], z1 += soa[k + 1] * 0.0f;
-  if (k + 2 < n) s2 += soa[k + 2], z2 += soa[k + 2] * 0.0f;
-  D8 zero, mean;
-  lane_sum8(z0, z1, z2, z3, zero);
-  lane_sum8(s0, s1, s2, s3, mean);
-  mean /= static_cast<double>(n);
-  const F8 mf = __builtin_convertvector(mean, F8);
-  F8 q0 = {}, q1 = {}, q2 = {}, q3 = {}, lo = soa[0], hi = soa[0];
-  const auto step = [&](F8& q, const F8& v) {
-    const F8 d = v - mf;
-    q += d * d;
-    lo = v < lo ? v : lo;
-    hi = v > hi ? v : hi;
-  };
-  for (k = 0; k + 4 <= n; k += 4) {
-    step(q0, soa[k]);
-    step(q1, soa[k + 1]);
-    step(q2, soa[k + 2]);
-    step(q3, soa[k + 3]);
-  }
-  if (k < n) step(q0, soa[k]);
-  if (k + 1 < n) step(q1, soa[k + 1]);
-  if (k + 2 < n) step(q2, soa[k + 2]);
-  D8 sum_sq;
-  lane_sum8(q0, q1, q2, q3, sum_sq);
-  F8 low = {}, high = {};
-  for (int b = 0; b < kBatch; ++b) {
-    const double c = 3.5 * std::max(std::sqrt(sum_sq[b] / n), static_cast<double>(kRoundingSigma));
-    low[b] = static_cast<float>(hi[b] - c);
-    high[b] = static_cast<float>(lo[b] + c);
-  }
-  I8 below = {}, above = {};
-  for (k = 0; k < n; ++k) {
-    below -= soa[k] < low;
-    above -= soa[k] > high;
-  }
-  const int mid = n / 2;
-  for (int b = 0; b < kBatch; ++b) {
-    out.finite[b] = zero[b] == 0.0;
-    out.clean[b] = out.finite[b] && below[b] <= mid - 1 && above[b] <= n - mid - 1;
-    if (!out.clean[b]) continue;
-    BorderStats& st = out.stats[b];
-    st.n_border = n;
-    st.level_adu = mf[b];
-    st.n_kept = n;
-    st.sigma_adu = std::max(static_cast<float>(n > 1 ? std::sqrt(sum_sq[b] / (n - 1)) : 0.0), kRoundingSigma);
-  }
+[[gnu::target("avx2")]] void batch_avx2(const F8* soa, int n, CleanRing* out) {
+  clean_ring<F8>([soa](int k) -> const F8& { return soa[k]; }, n, out);
 }
-
-void batch_baseline(const F8* soa, int n, Batch8& out) { batch_stats(soa, n, out); }
-[[gnu::target("avx2")]] void batch_avx2(const F8* soa, int n, Batch8& out) { batch_stats(soa, n, out); }
 
 }  // namespace
 
@@ -456,7 +467,7 @@ void border_stats_batch(float* rings, int stride, int count, int n, BackgroundMo
   F8* v = static_cast<F8*>(std::align(32, sizeof(F8) * n, start, room));
   assert(v != nullptr);
   const auto batch = simd == SimdLevel::kAvx2 ? batch_avx2 : batch_baseline;
-  Batch8 result;
+  CleanRing result[kBatch];
   // A batch costs about as much as three rings alone: the last one or two
   // boxes of a run (and runs of one box, in layouts that are not a grid)
   // are measured alone.
@@ -483,17 +494,8 @@ void border_stats_batch(float* rings, int stride, int count, int n, BackgroundMo
     }
     batch(v, n, result);
     for (int b = 0; b < kBatch && first + b < count; ++b) {
-      BorderStats& st = out[first + b];
-      if (result.clean[b]) {
-        st = result.stats[b];
-      } else if (!result.finite[b]) {
-        st = BorderStats{};
-        st.n_border = n;
-        st.finite = false;
-      } else {
-        st = ring_stats(rings + static_cast<std::size_t>(first + b) * stride, n,
-                        rings + static_cast<std::size_t>(first + b) * stride + n + 4);
-      }
+      const float* ring = rings + static_cast<std::size_t>(first + b) * stride;
+      out[first + b] = ring_answer(result[b], ring, n, rings + static_cast<std::size_t>(first + b) * stride + n + 4);
     }
   }
   for (; first < count; ++first) out[first] = ring_stats(rings + static_cast<std::size_t>(first) * stride, n,
