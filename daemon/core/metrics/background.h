@@ -128,7 +128,8 @@ inline void flux_snr_of(const V& flux, const V& sigma_pix, int n_pixels, const V
   V r;
   root(var, r);
   out = flux / (sigma_pix * r);
-  out = (flux > 0.0) & (sigma_pix > 0.0) ? out : zero;
+  out = flux > 0.0 ? out : zero;
+  out = sigma_pix > 0.0 ? out : zero;
 }
 
 }  // namespace slopecast::core
