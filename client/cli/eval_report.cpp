@@ -466,6 +466,17 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
     return run_gnuplot(script);
   };
   const std::size_t shown_candidates = std::min<std::size_t>(order.size(), 8);
+  // One gnuplot data block per shown candidate, best first ($<tag><rank>,
+  // its "x y" rows from rows_of(candidate)), and the plot term drawing it.
+  const auto candidate_lines = [&](const char* tag, double point_size, auto rows_of, std::string& body,
+                                   std::string& plot_cmd) {
+    for (std::size_t r = 0; r < shown_candidates; ++r) {
+      const std::size_t c = order[r];
+      body += fmt::format("${}{} << EOD\n", tag, r) + rows_of(c) + "EOD\n";
+      plot_cmd += fmt::format("${}{} with linespoints lw 2 pt 7 ps {} lc rgb '{}' title {}, ", tag, r, point_size,
+                              kPalette[r % 8], gp_text(run.candidates[c].label));
+    }
+  };
 
   // 1. Error (or noise) against the signal, with the theory lines.
   const auto knobs = knob_names(run);
@@ -478,19 +489,16 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
     for (std::size_t g = 0; g < noise_levels.size(); ++g) {
       std::string body;
       std::string plot_cmd = "plot ";
-      for (std::size_t r = 0; r < shown_candidates; ++r) {
-        const std::size_t c = order[r];
-        body += fmt::format("$c{} << EOD\n", r);
+      candidate_lines("c", 0.7, [&](std::size_t c) {
+        std::string rows;
         for (const auto& p : run.points) {
           if (!(knob(p, "read_noise_e") == noise_levels[g] || (std::isnan(noise_levels[g]) && std::isnan(knob(p, "read_noise_e")))))
             continue;
           const double f = truth ? p.results[c].rms_px : p.results[c].median_noise_px;
-          if (std::isfinite(f) && f > 0) body += fmt::format("{} {}\n", knob(p, "photons"), f);
+          if (std::isfinite(f) && f > 0) rows += fmt::format("{} {}\n", knob(p, "photons"), f);
         }
-        body += "EOD\n";
-        plot_cmd += fmt::format("$c{} with linespoints lw 2 pt 7 ps 0.7 lc rgb '{}' title {}, ", r, kPalette[r % 8],
-                                gp_text(run.candidates[c].label));
-      }
+        return rows;
+      }, body, plot_cmd);
       body += "$theory << EOD\n";
       bool theory = false;
       for (const auto& p : run.points)
@@ -523,15 +531,12 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
     const auto& p = run.points[pi];
     if (p.results.empty() || p.results[order[0]].response_x.size() < 3) continue;
     std::string body, plot_cmd = "plot ";
-    for (std::size_t r = 0; r < shown_candidates; ++r) {
-      const std::size_t c = order[r];
-      body += fmt::format("$r{} << EOD\n", r);
+    candidate_lines("r", 0.5, [&](std::size_t c) {
+      std::string rows;
       for (const auto& q : p.results[c].response_x)
-        if (q.samples >= 10) body += fmt::format("{} {}\n", q.true_px, q.measured_px - q.true_px);
-      body += "EOD\n";
-      plot_cmd += fmt::format("$r{} with linespoints lw 2 pt 7 ps 0.5 lc rgb '{}' title {}, ", r, kPalette[r % 8],
-                              gp_text(run.candidates[c].label));
-    }
+        if (q.samples >= 10) rows += fmt::format("{} {}\n", q.true_px, q.measured_px - q.true_px);
+      return rows;
+    }, body, plot_cmd);
     plot_cmd.resize(plot_cmd.size() - 2);
     body += "set xlabel 'true shift x (px)'\nset ylabel 'measured − true, x (px)'\nset title " +
             gp_text("response, " + p.label) + "\n" + plot_cmd + "\n";
@@ -547,15 +552,12 @@ std::string write_html(const std::filesystem::path& path, const std::filesystem:
     const auto& p = run.points[pi];
     if (p.results.empty() || p.results[order[0]].by_flux.size() < 2) continue;
     std::string body, plot_cmd = "plot ";
-    for (std::size_t r = 0; r < shown_candidates; ++r) {
-      const std::size_t c = order[r];
-      body += fmt::format("$f{} << EOD\n", r);
+    candidate_lines("f", 0.6, [&](std::size_t c) {
+      std::string rows;
       for (const auto& b : p.results[c].by_flux)
-        if (b.rms_error_px > 0) body += fmt::format("{} {}\n", std::sqrt(b.flux_lo_adu * b.flux_hi_adu), b.rms_error_px);
-      body += "EOD\n";
-      plot_cmd += fmt::format("$f{} with linespoints lw 2 pt 7 ps 0.6 lc rgb '{}' title {}, ", r, kPalette[r % 8],
-                              gp_text(run.candidates[c].label));
-    }
+        if (b.rms_error_px > 0) rows += fmt::format("{} {}\n", std::sqrt(b.flux_lo_adu * b.flux_hi_adu), b.rms_error_px);
+      return rows;
+    }, body, plot_cmd);
     plot_cmd.resize(plot_cmd.size() - 2);
     body += "set logscale xy\nset xlabel 'measured flux (ADU, bins of a factor 2)'\nset ylabel 'rms error per axis (px)'\n"
             "set title " + gp_text("error by flux, " + p.label) + "\n" + plot_cmd + "\n";

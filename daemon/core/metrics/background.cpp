@@ -6,7 +6,6 @@
 #include <cassert>
 #include <cmath>
 #include <cstring>
-#include <limits>
 #include <memory>
 #include <type_traits>
 
@@ -427,14 +426,6 @@ void gather_border_raw(const ImageView& image, std::span<const float> ring_dark,
     case PixelFormat::kU32: gather_ring<std::uint32_t>(image, d, box, ring); break;
     case PixelFormat::kF32: gather_ring<float>(image, d, box, ring); break;
   }
-}
-
-BorderStats border_stats_raw(const ImageView& image, std::span<const float> ring_dark, const Box& box,
-                             std::span<float> scratch, BackgroundMode mode) {
-  const int n = border_pixel_count(box.width, box.height);
-  assert(scratch.size() >= 2 * static_cast<std::size_t>(n) + 8);
-  gather_border_raw(image, ring_dark, box, scratch.data());
-  return stats_for(mode, scratch.data(), n);
 }
 
 namespace {

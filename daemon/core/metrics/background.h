@@ -77,26 +77,23 @@ inline int border_scratch_size(int width, int height) { return 2 * border_pixel_
 BorderStats border_stats(const WindowView& window, std::span<float> scratch,
                          BackgroundMode mode = BackgroundMode::kBorder);
 
-// The same from the raw frame: the ring of box `box` of the image, minus
-// ring_dark (the dark's values at the ring pixels, in ring order, as
-// ring_dark_values() lays them out; empty for no dark), without correcting
-// the rest of the box. Identical to border_stats() of the corrected window.
 struct Box;
-BorderStats border_stats_raw(const ImageView& image, std::span<const float> ring_dark, const Box& box,
-                             std::span<float> scratch, BackgroundMode mode = BackgroundMode::kBorder);
 // The dark frame's values at a box's ring pixels, in ring order (computed
 // once per box, so that the frame loop reads them contiguously). dark is
 // row-major, image_width wide.
 void ring_dark_values(std::span<const float> dark, int image_width, const Box& box, float* out);
 
-// The pieces of the two above, for many boxes at once (the pipeline's
-// path): gather a box's ring in ring order into ring (room for
-// border_scratch_size floats), then border_stats_batch() on the gathered
-// rings, rings[i * stride ...] for box i (stride >= border_scratch_size; the
-// rings are overwritten). out[i] is bit for bit what border_stats() gives
-// for ring i: eight boxes share vector lanes, with every sum in the same
-// order. soa: border_batch_scratch_size(n) floats of scratch.
-// simd picks the AVX2 build of the same source (frame/raw_columns.h).
+// For many boxes at once (the pipeline's path): gather each box's ring in
+// ring order into ring (room for border_scratch_size floats), from a
+// corrected window (gather_border) or from the raw frame minus ring_dark
+// (gather_border_raw: the dark's values at the ring pixels, in ring order,
+// as ring_dark_values() lays them out; empty for no dark), then
+// border_stats_batch() on the gathered rings, rings[i * stride ...] for box
+// i (stride >= border_scratch_size; the rings are overwritten). out[i] is
+// bit for bit what border_stats() gives for ring i: eight boxes share
+// vector lanes, with every sum in the same order. soa:
+// border_batch_scratch_size(n) floats of scratch. simd picks the AVX2
+// build of the same source (frame/raw_columns.h).
 void gather_border(const WindowView& window, float* ring);
 void gather_border_raw(const ImageView& image, std::span<const float> ring_dark, const Box& box, float* ring);
 inline int border_batch_scratch_size(int n_ring) { return 8 * (n_ring + 4) + 8; }

@@ -53,7 +53,11 @@ TEST_CASE("the median estimator on worked numbers, raw and corrected alike", "[b
   for (int i = 0; i < 25; ++i) raw[i] = static_cast<std::uint16_t>(w[i] + 2.0f);
   const std::vector<float> dark(16, 2.0f);
   const core::ImageView view{std::as_bytes(std::span(raw)), 5, 5, 10, core::PixelFormat::kU16};
-  const auto r = core::border_stats_raw(view, dark, core::Box{0, 0, 5, 5}, scratch, core::BackgroundMode::kBorderMedian);
+  core::gather_border_raw(view, dark, core::Box{0, 0, 5, 5}, scratch.data());
+  std::vector<float> soa(core::border_batch_scratch_size(16));
+  core::BorderStats r;
+  core::border_stats_batch(scratch.data(), core::border_scratch_size(5, 5), 1, 16, core::BackgroundMode::kBorderMedian,
+                           std::span(&r, 1), soa, core::best_simd_level());
   CHECK(r.level_adu == 8.5f);
   CHECK(r.sigma_adu == b.sigma_adu);
   // Through the pipeline: a flat 40-ADU pedestal is gone.
